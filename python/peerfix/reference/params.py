@@ -1,0 +1,83 @@
+"""Settings of the estimator, shared by every engine (float twin and C core).
+
+The C core has compile-time bounds (`PFX_MAX_COMPONENTS`, ...); these are
+run-time settings that must stay within them.  Defaults are the tuned values
+the open-field and demo checks are measured with.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, replace
+
+# Directions of ring arcs come from one fixed table of unit vectors at
+# 2*pi*k/RING_DIRECTIONS.  A fixed table keeps arcs algebraic (no trig on the
+# tag) and lets the float twin and the fixed-point core place arcs identically.
+RING_DIRECTIONS = 256
+
+
+@dataclass(frozen=True)
+class EstimatorParams:
+    max_components: int = 4
+    """K: components a node keeps in its belief and broadcasts."""
+
+    working_cap: int = 16
+    """Components kept in the working mixture between neighbours."""
+
+    candidate_cap: int = 64
+    """Hard cap on the products of one neighbour step (and on the first ring)."""
+
+    ring_arc_spacing_m: float = 1.0
+    """Smallest spacing of arcs along a ring; the table stride doubles past it."""
+
+    arc_tangential_ratio: float = 0.6
+    """Tangential std of an arc as a share of the arc spacing (smooth overlap)."""
+
+    broad_max_arcs: int = 16
+    """Arcs at most when a broad component meets a ring."""
+
+    broad_window_sigmas: float = 3.0
+    """A broad component meets the part of the ring within this many sigmas."""
+
+    broad_sagitta_ratio: float = 1.0
+    """A component is broad when the ring's sagitta over +-2 tangential sigmas
+    exceeds this many ring standard deviations (a linear update would bend)."""
+
+    iekf_iterations: int = 3
+    """Relinearisations of the compact (iterated extended Kalman) update."""
+
+    merge_gate_sigma2: float = 1.0
+    """Before Runnalls' reduction, components this close (squared Mahalanobis
+    distance, summed covariances) are folded into one."""
+
+    prune_log_ratio: float = -9.21  # ln(1e-4)
+    """Drop components whose log-weight is this far below the largest."""
+
+    broadcast_inflation: float = 2.0
+    """Covariance factor applied to a belief before it is sent (loops in the
+    network re-count information; inflating keeps beliefs calibrated)."""
+
+    censor_spread_m: float = 2.0
+    """A belief is sent only when its heaviest component's largest standard
+    deviation is at most this (censoring of uninformative beliefs)."""
+
+    robust: bool = False
+    """Use the blocked-path (two-ring) likelihood for every range."""
+
+    robust_weight: float = 0.1
+    """Weight of the blocked-path ring when the site gives no blocked share."""
+
+    robust_bias_m: float = 1.0
+    """Mean positive bias of a blocked range when the site gives none."""
+
+    mode_gate_sigma2: float = 9.0
+    """Two components belong to one mode when their squared Mahalanobis
+    distance (summed covariances) is at most this."""
+
+    mode_min_weight: float = 0.05
+    """A mode counts only with at least this share of the weight."""
+
+    def replace(self, **changes) -> "EstimatorParams":
+        return replace(self, **changes)
+
+    def as_dict(self) -> dict:
+        return asdict(self)
