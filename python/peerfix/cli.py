@@ -21,8 +21,11 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"peerfix {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
+    from .commands import run
     from .simulate import cli as simulate_cli
+
     simulate_cli.register(sub)
+    run.register(sub)
     return parser
 
 

@@ -1,0 +1,1 @@
+"""Subcommands of the `peerfix` CLI: each module has register(subparsers)."""
