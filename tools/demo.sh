@@ -1,0 +1,7 @@
+#!/usr/bin/env bash
+# Set everything up (tools/setup.sh) and run the built-in demo into demo-out/.
+set -euo pipefail
+here=$(cd "$(dirname "$0")/.." && pwd)
+cd "$here"
+bash tools/setup.sh
+exec .venv/bin/peerfix demo --out "${1:-demo-out}"
