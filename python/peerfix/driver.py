@@ -52,8 +52,12 @@ def run_epoch(
     schedule: str = "slot",
     t_s: float = 0.0,
     keep_beliefs: bool = False,
+    on_iteration=None,
 ) -> EpochRecord:
-    """Run `iterations` rounds of the schedule; returns every agent's report per round."""
+    """Run `iterations` rounds of the schedule; returns every agent's report per round.
+
+    on_iteration(record) is called after each round (progress displays).
+    """
     if schedule not in SCHEDULES:
         raise ValueError(f"unknown schedule {schedule!r}; choose one of {', '.join(SCHEDULES)}")
     record = EpochRecord(t_s)
@@ -78,6 +82,8 @@ def run_epoch(
                 sent += 1
                 sent_bytes += engine.message_bytes(air[a])
         record.iterations.append(_snapshot(engine, agent_ids, it, sent, sent_bytes, keep_beliefs))
+        if on_iteration is not None:
+            on_iteration(record.iterations[-1])
     return record
 
 

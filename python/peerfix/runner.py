@@ -61,7 +61,10 @@ def run_scenario(
     process_var_m2_per_s: float = 1.0,
     progress=None,
 ) -> RunResult:
-    """Run every epoch of the scenario; `progress(done, total)` is called after each epoch."""
+    """Run every epoch of the scenario.
+
+    progress(done, total) is called after every iteration of every epoch.
+    """
     if iterations < 1:
         raise ValueError("iterations must be at least 1")
     params = params or EstimatorParams()
@@ -69,23 +72,35 @@ def run_scenario(
     eng.start(scenario.site.bounds_m, scenario.anchor_positions(), scenario.agent_ids)
     result = RunResult(scenario, engine, params, schedule, cooperative)
     epochs = scenario.ranges.epochs()
+    total = len(epochs) * iterations
+    done = 0
+
+    def tick(_record):
+        nonlocal done
+        done += 1
+        if progress is not None:
+            progress(done, total)
+
     last_t = None
-    for n, t_s in enumerate(epochs):
+    for t_s in epochs:
         if last_t is not None:
             for a in scenario.agent_ids:
                 eng.predict(a, float(t_s - last_t), process_var_m2_per_s)
         links = epoch_links(scenario, float(t_s), cooperative=cooperative)
-        record = run_epoch(eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, float(t_s), keep_beliefs)
+        record = run_epoch(
+            eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, float(t_s), keep_beliefs, tick
+        )
         result.epochs.append(record)
-        result.metrics.append(score_epoch(scenario, record))
+        result.metrics.append(score_epoch(scenario, record, cooperative))
         last_t = t_s
-        if progress is not None:
-            progress(n + 1, len(epochs))
     return result
 
 
-def score_epoch(scenario: Scenario, record: EpochRecord) -> dict:
-    """Metrics per iteration against truth and the bound (empty without truth)."""
+def score_epoch(scenario: Scenario, record: EpochRecord, cooperative: bool = True) -> dict:
+    """Metrics per iteration against truth and the bound (empty without truth).
+
+    The bound is the one of the links the run used: cooperative, or anchors-only.
+    """
     from .harness import accuracy_metrics, network_bounds
 
     if scenario.truth is None:
@@ -95,7 +110,7 @@ def score_epoch(scenario: Scenario, record: EpochRecord) -> dict:
         return {}
     truth_xy = np.array([truth[a] for a in scenario.agent_ids])
     bounds = network_bounds(scenario, record.t_s)
-    peb = np.asarray(bounds["peb_m"])
+    peb = np.asarray(bounds["peb_m"] if cooperative else bounds["peb_anchors_only_m"])
     per_iter = []
     for it in record.iterations:
         m = accuracy_metrics(it.mean, it.cov, truth_xy, peb)
