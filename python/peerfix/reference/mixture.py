@@ -266,13 +266,18 @@ def gate_merge(m: Mixture, gate_sigma2: float) -> Mixture:
 
 
 def reduce_to(m: Mixture, cap: int, log_ratio: float, hard_cap: int | None = None, gate_sigma2: float = 0.0) -> Mixture:
-    """Prune negligible components, fold near-duplicates, keep at most hard_cap
-    heaviest, then merge down to cap by Runnalls' cost."""
+    """Keep at most hard_cap heaviest, prune negligible components, fold
+    near-duplicates, then merge down to cap by Runnalls' cost.
+
+    Keeping the heaviest first gives the same set as pruning first (the
+    heaviest is in both) and is what a bounded buffer on the tag can do while
+    the products stream in.
+    """
+    if hard_cap is not None:
+        m = keep_heaviest(m, hard_cap)
     m = prune(m, log_ratio)
     if len(m) > cap:
         m = gate_merge(m, gate_sigma2)
-    if hard_cap is not None:
-        m = keep_heaviest(m, hard_cap)
     return runnalls_reduce(m, cap).normalised() if len(m) > cap else m.normalised()
 
 
