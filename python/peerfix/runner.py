@@ -20,12 +20,16 @@ from .network import epoch_links
 from .reference import BlockedModel, EstimatorParams, FloatEngine
 from .scenario.model import Scenario
 
-ENGINES = ("float",)
+ENGINES = ("float", "fixed")
 
 
 def make_engine(name: str, params: EstimatorParams, blocked: BlockedModel):
     if name == "float":
         return FloatEngine(params, blocked)
+    if name == "fixed":
+        from .core.engine_fixed import FixedEngine  # needs the compiled core
+
+        return FixedEngine(params, blocked)
     raise ValueError(f"unknown engine {name!r}; choose one of {', '.join(ENGINES)}")
 
 

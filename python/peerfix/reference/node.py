@@ -79,13 +79,14 @@ def update(
 ) -> Mixture | None:
     """A new belief from the prior and every received broadcast; None if nothing was heard.
 
+    At most params.max_neighbours broadcasts are used, the most informative.
     The first message turns a flat prior into a whole ring of arcs, kept whole
     until a second message cuts it down; after each later message the working
     mixture is pruned and merged back to the working cap; the result is
     reduced to K components.
     """
     work = prior
-    for msg in order_for_update(inbox):
+    for msg in order_for_update(inbox)[: params.max_neighbours]:
         rings = ring_messages(msg.belief, msg.range_m, msg.sigma_m, params, blocked.weight, blocked.bias_m)
         if work is None:
             ring = first_ring(rings, bounds_m, params)

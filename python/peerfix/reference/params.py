@@ -23,6 +23,10 @@ class EstimatorParams:
     working_cap: int = 16
     """Components kept in the working mixture between neighbours."""
 
+    max_neighbours: int = 16
+    """Broadcasts one update uses at most: the most informative (see
+    node.order_for_update).  A tag's inbox is a bounded buffer."""
+
     candidate_cap: int = 64
     """Hard cap on the products of one neighbour step (and on the first ring)."""
 
