@@ -321,13 +321,15 @@ def modes(m: Mixture, gate_sigma2: float, min_weight: float) -> list[tuple[float
 
 
 def point_estimate(m: Mixture, gate_sigma2: float, min_weight: float) -> PointEstimate:
-    """The mixture mean when the belief is unimodal, else the dominant mode's
+    """The mode's mean when the belief is unimodal, else the dominant mode's
     mean and covariance (the mixture mean of a two-mode belief lies between a
     right mode and a flipped one, where the tag is not)."""
     found = modes(m, gate_sigma2, min_weight)
-    if len(found) == 1:
-        mean, cov = moments(m)
-        return PointEstimate(mean, cov, 1, 1.0)
     weight, idx = found[0]
+    if len(found) == 1:
+        # One mode: its moments; components too light to form a mode of their
+        # own (below min_weight) must not drag the estimate across the site.
+        mean, cov = moments(m.take(idx))
+        return PointEstimate(mean, cov, 1, weight)
     mean, cov = moments(m.take(idx))
     return PointEstimate(mean, cov, len(found), weight)

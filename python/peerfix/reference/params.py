@@ -39,7 +39,7 @@ class EstimatorParams:
     broad_max_arcs: int = 16
     """Arcs at most when a broad component meets a ring."""
 
-    broad_window_sigmas: float = 3.0
+    broad_window_sigmas: float = 4.0
     """A broad component meets the part of the ring within this many sigmas."""
 
     broad_sagitta_ratio: float = 1.0

@@ -95,7 +95,10 @@ def arc_gaussians(centre, radius: float, var: float, dirs: np.ndarray, stride: i
     t2 = (params.arc_tangential_ratio * spacing) ** 2
     # A ring of radius ~0 is a blob at the centre: keep its arcs from collapsing.
     t2 = max(t2, var)
-    mean = centre[None, :] + radius * u
+    # A straight arc of tangential variance t2 reaches out to radius r + t2/(2r)
+    # on average; pulling its centre in by that much keeps the ring's mass on r.
+    inward = t2 / (2.0 * radius) if radius > 0 else 0.0
+    mean = centre[None, :] + max(radius - inward, 0.0) * u
     cov = var * u[:, :, None] * u[:, None, :] + t2 * v[:, :, None] * v[:, None, :]
     return mean, cov, float(np.log(max(spacing, 1e-9)))
 
