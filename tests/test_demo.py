@@ -1,6 +1,6 @@
 """`peerfix demo` and the report package: files, numbers, pictures, and the point of the tool.
 
-The full demo (cold-store, seed 0, 6 iterations) runs once per module (about
+The full demo (cold-store, seed 2, 6 iterations) runs once per module (about
 8 s); the CLI test uses 2 iterations to stay fast.
 """
 
@@ -98,7 +98,7 @@ def test_demo_writes_report_pictures_scenario_and_runs(demo):
 def test_scenario_folder_reads_back_as_the_simulated_scenario(demo):
     out, _ = demo
     back = read_scenario(out / "scenario")
-    assert_scenarios_equal(back, simulate("cold-store", seed=0), lines=False)
+    assert_scenarios_equal(back, simulate("cold-store", seed=2), lines=False)
 
 
 def test_existing_scenario_folder_is_refused_without_overwrite(demo):
@@ -151,7 +151,7 @@ def test_report_site_paragraph_states_the_blocked_share(demo):
     share = summarize(read_scenario(out / "scenario"))["blocked_share"]
     assert abs(float(m.group(1)) / 100 - share) <= SHARE_TOL
     assert "36 racks" in text  # cold_store_racks_m: 9 double racks x 2 halves x 2 single racks
-    assert "peerfix demo --out" in text and "--seed 0" in text
+    assert "peerfix demo --out" in text and "--seed 2" in text
     assert "not a certified safety function" in text
 
 

@@ -1,0 +1,255 @@
+/*
+ * pfx_mixture.h - Gaussian-mixture algebra (module "mixture"), included by peerfix.h.
+ *
+ * Mirrors python/peerfix/reference/mixture.py step by step: log-sum-exp
+ * normalising, moments, pruning, the keep-heaviest candidate buffer, the
+ * one-pass gate merge, Runnalls' reduction, the Gaussian product, modes and
+ * the point estimate.
+ *
+ * Representation
+ *   - Means: pfx_len_q10_t (Q21.10 m).  Covariances: pfx_area_q20_t
+ *     (Q11.20 m^2), pxy stored once (symmetric by construction).
+ *   - Weights: pfx_log2_q16_t, base-2 log (the float twin's natural log
+ *     weight times 1/ln 2).  Linear weights inside a step are int64 Q40
+ *     relative to the heaviest component (2^40 = the heaviest), from
+ *     pfx_fixed_exp2_split; fractions of a total are Q30.
+ *   - Every step works in the local frame of a component mean: offsets are
+ *     int64 (Q10 or Q20), clamped to +-2^30 Q10 (+-1 048 576 m) so that no
+ *     product can overflow; realistic sites never come near the clamp.
+ *   - Intermediates of the 2x2 algebra are int64 in Q30 (m^2, gains) with
+ *     one rounding to the stored format at the end; products of two int64
+ *     go through pfx_mixture_mul64 (exact 128-bit product, one rounding,
+ *     saturating), divisions through one reciprocal per divisor
+ *     (pfx_fixed_recip on the top 32 bits: relative error <= 2^-30).
+ *   - Covariances that leave an update are checked: diagonals > 0 and
+ *     det >= 1 (Q40 LSB); an off-diagonal that rounding pushed past
+ *     sqrt(pxx pyy) is pulled back to it; a non-positive diagonal makes the
+ *     candidate degenerate (PFX_ERR_DEGENERATE: the caller drops it).
+ *     Entries beyond the Q20 range saturate (2048 m^2).
+ *
+ * Rounding: to nearest, ties toward +infinity (the house rule), unless a
+ * comment says otherwise.
+ */
+#ifndef PFX_MIXTURE_H
+#define PFX_MIXTURE_H
+
+#include "peerfix.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* PFX_CDEF_BEGIN */
+
+/* ---- compile-time bounds ---- */
+#define PFX_MAX_COMPONENTS 8      /* K bound of a belief (run-time K <= this) */
+#define PFX_MAX_WORKING 16        /* working mixture bound between neighbours */
+#define PFX_MAX_CANDIDATES 64     /* products of one neighbour step; also the first ring's arcs */
+#define PFX_MAX_NEIGHBOURS 16     /* broadcasts one update can use */
+#define PFX_MAX_BROAD_ARCS 16     /* arcs of one broad product */
+#define PFX_RING_DIRECTIONS 256   /* the arc direction table */
+#define PFX_RUNNALLS_PAIRS 2016   /* PFX_MAX_CANDIDATES * (PFX_MAX_CANDIDATES - 1) / 2 */
+
+/* ---- types with meaning ---- */
+/* A coordinate or length in metres, Q21.10: LSB 2^-10 m (~0.98 mm), range +-2 097 152 m. */
+typedef int32_t pfx_len_q10_t;
+/* An area in m^2 (variance, covariance), Q11.20: LSB 2^-20 m^2 (~9.5e-7 m^2), range +-2048 m^2. */
+typedef int32_t pfx_area_q20_t;
+/* A dimensionless ratio >= 0 (inflation, sigma counts, sagitta ratio, Mahalanobis gates), Q15.16. */
+typedef int32_t pfx_ratio_q16_t;
+
+/* One Gaussian component: log2 weight, mean, covariance (symmetric: pxy once). 24 bytes. */
+typedef struct {
+    pfx_log2_q16_t log2w;
+    pfx_len_q10_t x, y;
+    pfx_area_q20_t pxx, pxy, pyy;
+} pfx_component_t;
+
+/* A belief or a broadcast: count = 0 means none (prior / censored). */
+typedef struct {
+    uint32_t count;
+    pfx_component_t comp[PFX_MAX_COMPONENTS];
+} pfx_belief_t;
+
+/* The point estimate a user acts on. */
+typedef struct {
+    pfx_len_q10_t x, y;
+    pfx_area_q20_t pxx, pxy, pyy;
+    uint32_t mode_count;                /* 0 = prior only */
+    pfx_frac_q30_t mode_weight;
+    uint32_t components;
+} pfx_estimate_t;
+
+/* Scratch of the reductions (gate merge, Runnalls); lives in pfx_workspace_t. */
+typedef struct {
+    uint32_t cost[PFX_RUNNALLS_PAIRS];        /* Runnalls costs, packed monotone (see pfx_mixture.c), upper triangle */
+    int64_t weight[PFX_MAX_CANDIDATES];       /* linear weights, Q40 */
+    int32_t logdet[PFX_MAX_CANDIDATES];       /* log2 det P (raw Q40 determinant), Q16 */
+    uint8_t order[PFX_MAX_CANDIDATES];        /* heaviest-first order */
+    uint8_t group[PFX_MAX_CANDIDATES];        /* gate merge: seed of each component */
+    uint8_t seeds[PFX_MAX_CANDIDATES];        /* gate merge: seeds in creation order */
+    uint8_t members[PFX_MAX_CANDIDATES];      /* gate merge: members of one group */
+    uint8_t alive[PFX_MAX_CANDIDATES];        /* Runnalls: still in the mixture */
+    pfx_component_t tmp[PFX_MAX_CANDIDATES];  /* gate merge output */
+} pfx_mixture_scratch_t;
+
+/*
+ * Wide arithmetic used across the core (exported for the tests).
+ * mul64: round(a * b / 2^s) for any int64 a, b and s <= 127, ties toward
+ *   +infinity, saturated to int64.  Scaling: Qa * Qb >> s.  Exact: the
+ *   128-bit product is formed from four 32x32 partial products (one SMULL
+ *   when both operands fit in 32 bits), rounded once.
+ * cmp_products: sign of a*b - c*d for unsigned 64-bit operands (exact, 128-bit).
+ */
+int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s);
+int pfx_mixture_cmp_products(uint64_t a, uint64_t b, uint64_t c, uint64_t d);
+
+/* PFX_OK when every covariance of c[0..n) is positive semi-definite (pxx >= 0,
+ * pyy >= 0, pxx*pyy >= pxy^2 in int64), else PFX_ERR_DEGENERATE; n > PFX_MAX_CANDIDATES: PFX_ERR_ARG. */
+pfx_status_t pfx_mixture_check(const pfx_component_t *c, uint32_t n);
+
+/* Largest eigenvalue 0.5(a+c) + sqrt(0.25(a-c)^2 + b^2), Q20, saturated to
+ * INT32_MAX.  Exact 128-bit radicand, one rounded square root and one rounded
+ * halving: error <= 1 LSB.  0 for a NULL pointer. */
+pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c);
+
+/* log-sum-exp normalising in log2: l -= max + log2(sum 2^(l - max)).
+ * exp2 terms in Q30 (<= 0.57 LSB each), log2 of the sum 0.70 LSB: the
+ * normalised weights are within 1 LSB (Q16) of exact.  n = 0 is a no-op. */
+pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n);
+
+/* Mean and covariance of the whole mixture (moment matching); out->log2w is
+ * the log-sum-exp of the weights.  PFX_ERR_EMPTY for n = 0. */
+pfx_status_t pfx_mixture_moments(const pfx_component_t *c, uint32_t n, pfx_component_t *out);
+
+/* Drop components more than -log2_ratio below the heaviest (keeps order). */
+pfx_status_t pfx_mixture_prune(pfx_component_t *c, uint32_t *n, pfx_log2_q16_t log2_ratio);
+
+/* Keep-heaviest stream: append c while *count < cap; when full, c replaces
+ * the lightest (the latest-arrived among equally light ones) if it is
+ * strictly heavier, and goes to the end: the buffer always holds the cap
+ * heaviest so far (earlier wins ties) in arrival order. */
+pfx_status_t pfx_mixture_stream_push(pfx_component_t *buf, uint32_t *count, uint32_t cap, const pfx_component_t *c);
+
+/* N(x; a) N(x; b) = z N(x; out): Kalman form (gain K = Pa (Pa + Pb)^-1,
+ * P = K Pb, symmetrised), out->log2w = a->log2w + b->log2w + log2 z with
+ * log z = log N(mu_b; mu_a, Pa + Pb).  PFX_ERR_DEGENERATE when Pa + Pb is
+ * singular or the product is not positive definite (drop it). */
+pfx_status_t pfx_mixture_product(const pfx_component_t *a, const pfx_component_t *b, pfx_component_t *out);
+
+/* Moment-preserving merge of two components (Runnalls 2007). */
+pfx_status_t pfx_mixture_merge(const pfx_component_t *a, const pfx_component_t *b, pfx_component_t *out);
+
+/* 1 when (mu_a - mu_b)^T (Pa + Pb)^-1 (mu_a - mu_b) <= gate (Q16), exactly
+ * (division-free 128-bit comparison); 0 when Pa + Pb is singular. */
+int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, pfx_ratio_q16_t gate);
+
+/* One-pass fold of near-duplicates (reference gate_merge); gate <= 0: no-op. */
+pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s);
+
+/* Greedy Runnalls reduction to at most cap components (reference
+ * runnalls_reduce): ties of the argmin go to the first pair in row-major
+ * order; the merged component takes the place of i, j is removed; the
+ * result is normalised.  n <= cap: unchanged. */
+pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_mixture_scratch_t *s);
+
+/* reference reduce_to without the hard cap (the stream buffer is the hard
+ * cap): prune, gate merge when n > cap, Runnalls when still n > cap, normalise. */
+pfx_status_t pfx_mixture_reduce(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_log2_q16_t log2_ratio,
+                                pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s);
+
+/* reference point_estimate for n <= PFX_MAX_COMPONENTS (no scratch needed):
+ * modes heaviest first within the gate, modes below min_weight dropped (the
+ * heaviest is kept when none reaches it); the reported mode is the
+ * heaviest: its moments and weight, mode_count the modes kept.
+ * out->components = n.  PFX_ERR_EMPTY for n = 0, PFX_ERR_ARG for
+ * n > PFX_MAX_COMPONENTS. */
+pfx_status_t pfx_mixture_point_estimate(const pfx_component_t *c, uint32_t n, pfx_ratio_q16_t gate,
+                                        pfx_frac_q30_t min_weight, pfx_estimate_t *out);
+
+/* PFX_CDEF_END */
+
+/* ---- internal helpers shared by the core's modules (not part of the binding) ---- */
+
+/* 1/x ~ mant / 2^shift for a 64-bit x > 0: x rounded to its top 32 bits,
+ * then pfx_fixed_recip; relative error <= 2^-30.  shift <= 94. */
+typedef struct {
+    int32_t mant;
+    uint32_t shift;
+} pfx_recip64_t;
+
+pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r);
+/* round(num * 2^frac / x) from x's reciprocal (relative error <= 2^-30 + 0.5 LSB), saturated. */
+int64_t pfx_mixture_mul_recip(int64_t num, const pfx_recip64_t *r, unsigned frac);
+/* 2^x * 2^40 for a log2 weight x <= 0 (Q16): int64 Q40, 0 below 2^-40. */
+int64_t pfx_mixture_lin_q40(int64_t x);
+/* round(sqrt(x)) exactly, for any 64-bit x (rsqrt seed, three Newton steps, exact correction). */
+uint64_t pfx_mixture_isqrt_round(uint64_t x);
+/* y = 2^30 / sqrt(m / 2^64) (Q30, about 2^-29 relative) for m in [2^62, 2^64). */
+uint64_t pfx_mixture_rsqrt_q30(uint64_t m);
+
+/* ---- inline arithmetic of the hot loops (same rules as pfx_fixed) ---- */
+
+/* round(x / 2^s), ties toward +infinity, any s: pfx_fixed_shr64_round, inlined. */
+static inline int64_t pfx_mixture_shr_round(int64_t x, unsigned s)
+{
+    uint64_t ux = (uint64_t)x;
+    int64_t q;
+    if (s == 0u) {
+        return x;
+    }
+    if (s > 63u) {
+        return 0;
+    }
+    q = (x >= 0) ? (int64_t)(ux >> s) : -(int64_t)((uint64_t)(-(x + 1)) >> s) - 1; /* floor */
+    return q + (int64_t)((ux >> (s - 1u)) & 1u);
+}
+
+/* round(a * b / 2^s) for int32 operands: |a b| <= 2^62, one rounding. */
+static inline int64_t pfx_mixture_mul32(int32_t a, int32_t b, unsigned s)
+{
+    return pfx_mixture_shr_round((int64_t)a * b, s);
+}
+
+/* pfx_mixture_mul64 with the one-multiply case inlined (both operands in int32). */
+static inline int64_t pfx_mixture_mul(int64_t a, int64_t b, unsigned s)
+{
+    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
+        return pfx_mixture_shr_round(a * b, s);
+    }
+    return pfx_mixture_mul64(a, b, s);
+}
+
+static inline int32_t pfx_mixture_sat32(int64_t x)
+{
+    return (x > INT32_MAX) ? INT32_MAX : ((x < INT32_MIN) ? INT32_MIN : (int32_t)x);
+}
+
+/* b - a for two coordinates, clamped to +-2^30 (the local-frame bound). */
+static inline int64_t pfx_mixture_offset(int32_t a, int32_t b)
+{
+    int64_t d = (int64_t)b - (int64_t)a;
+    const int64_t lim = INT64_C(1) << 30;
+    return (d > lim) ? lim : ((d < -lim) ? -lim : d);
+}
+/* Store an int64 Q20 covariance: saturate to int32, pull pxy back to keep
+ * det >= 1; PFX_ERR_DEGENERATE if a diagonal is <= 0 (out untouched then). */
+pfx_status_t pfx_mixture_store_cov(int64_t pxx, int64_t pxy, int64_t pyy, pfx_component_t *out);
+/* The Gaussian product with b given by its mean offset from a (Q20) and its
+ * covariance; out->log2w = a->log2w + extra_log2w + log2 z. */
+pfx_status_t pfx_mixture_product_local(const pfx_component_t *a, int64_t dx_q20, int64_t dy_q20, int32_t bxx,
+                                       int32_t bxy, int32_t byy, int64_t extra_log2w, pfx_component_t *out);
+
+/* ---- generated constants (tools/gen_direction_table.py) ---- */
+/* BEGIN GENERATED CONSTANTS by tools/gen_direction_table.py: do not edit */
+#define PFX_PI_Q29 (1686629713) /* round(pi * 2^29) */
+#define PFX_LOG2_2PI_Q16 (173768) /* round(log2(2 pi) * 2^16) */
+#define PFX_INV_2LN2_Q30 (774541002) /* round(1 / (2 ln 2) * 2^30) */
+#define PFX_LOG2_1E9_Q16 (-1959353) /* round(log2(1e-9) * 2^16) */
+/* END GENERATED CONSTANTS */
+
+#ifdef __cplusplus
+}
+#endif
+
+#endif /* PFX_MIXTURE_H */

@@ -1,0 +1,1095 @@
+/*
+ * pfx_mixture.c - Gaussian-mixture algebra.  See pfx_mixture.h for the
+ * formats; each function says its scaling, overflow and rounding.
+ *
+ * Mirrors python/peerfix/reference/mixture.py.  Portability notes (as in
+ * pfx_fixed.c): negative values are never shifted (floor and rounding
+ * shifts go through pfx_fixed_shr64_*), magnitudes are taken through
+ * unsigned arithmetic, and every product is bounded in a comment or formed
+ * by pfx_mixture_mul64 (128-bit exact, saturating).
+ */
+#include <string.h>
+
+#include "peerfix.h"
+
+#define ONE_Q30 (INT64_C(1) << 30)
+
+/* BEGIN GENERATED SEEDS by tools/gen_direction_table.py: do not edit */
+/* round(2^15 / sqrt((65 + 2 i) / 256)), i = 0..95: 1/sqrt(M) seeds, Q15, M in [1/4, 1). */
+static const uint16_t k_rsqrt_seed_q15[96] = {
+    65030u, 64052u, 63117u, 62222u, 61363u, 60540u, 59748u, 58987u, 58254u, 57548u, 56867u, 56210u,
+    55574u, 54960u, 54366u, 53791u, 53233u, 52693u, 52169u, 51660u, 51165u, 50685u, 50218u, 49763u,
+    49321u, 48890u, 48470u, 48061u, 47663u, 47273u, 46894u, 46523u, 46161u, 45807u, 45462u, 45124u,
+    44793u, 44470u, 44153u, 43843u, 43540u, 43243u, 42951u, 42666u, 42386u, 42112u, 41843u, 41579u,
+    41320u, 41065u, 40816u, 40571u, 40330u, 40093u, 39861u, 39632u, 39408u, 39187u, 38970u, 38756u,
+    38546u, 38340u, 38136u, 37936u, 37739u, 37545u, 37354u, 37166u, 36980u, 36798u, 36618u, 36441u,
+    36266u, 36093u, 35924u, 35756u, 35591u, 35428u, 35267u, 35109u, 34953u, 34798u, 34646u, 34496u,
+    34347u, 34201u, 34056u, 33913u, 33772u, 33633u, 33496u, 33360u, 33225u, 33093u, 32962u, 32832u
+};
+/* END GENERATED SEEDS */
+#define ONE_Q40 (INT64_C(1) << 40)
+#define OFFSET_LIMIT (INT64_C(1) << 30)
+
+/* ------------------------------------------------------------------------ */
+/* 128-bit unsigned helpers                                                   */
+/* ------------------------------------------------------------------------ */
+
+typedef struct {
+    uint64_t hi;
+    uint64_t lo;
+} u128_t;
+
+static uint64_t mag64(int64_t v)
+{
+    return (v < 0) ? (uint64_t)(-(v + 1)) + 1u : (uint64_t)v;
+}
+
+/* The helpers below never wrap and never shift a set bit out (clean under
+ * clang's -fsanitize=integer): carries and borrows are found by comparison,
+ * shifted words are masked first. */
+
+/* Exact a * b from four 32x32 -> 64 products; mid < 3 * 2^32 cannot wrap. */
+static u128_t u128_mul(uint64_t a, uint64_t b)
+{
+    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
+    uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
+    uint64_t p00 = a0 * b0, p01 = a0 * b1, p10 = a1 * b0, p11 = a1 * b1;
+    uint64_t mid = (p00 >> 32) + (p01 & m32) + (p10 & m32);
+    u128_t r;
+    r.lo = ((mid & m32) << 32) | (p00 & m32);
+    r.hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
+    return r;
+}
+
+/* Sums stay below 2^128 wherever they are used (bounds at the call). */
+static u128_t u128_add(u128_t a, u128_t b)
+{
+    u128_t r;
+    if (b.lo > UINT64_MAX - a.lo) {
+        r.lo = b.lo - (UINT64_MAX - a.lo) - 1u;
+        r.hi = a.hi + b.hi + 1u;
+    } else {
+        r.lo = a.lo + b.lo;
+        r.hi = a.hi + b.hi;
+    }
+    return r;
+}
+
+/* a - b for a >= b. */
+static u128_t u128_sub(u128_t a, u128_t b)
+{
+    u128_t r;
+    if (a.lo < b.lo) {
+        r.lo = (UINT64_MAX - b.lo) + a.lo + 1u;
+        r.hi = a.hi - b.hi - 1u;
+    } else {
+        r.lo = a.lo - b.lo;
+        r.hi = a.hi - b.hi;
+    }
+    return r;
+}
+
+static int u128_cmp(u128_t a, u128_t b)
+{
+    if (a.hi != b.hi) {
+        return (a.hi < b.hi) ? -1 : 1;
+    }
+    if (a.lo != b.lo) {
+        return (a.lo < b.lo) ? -1 : 1;
+    }
+    return 0;
+}
+
+static u128_t u128_shr(u128_t a, unsigned s)
+{
+    u128_t r;
+    if (s == 0u) {
+        return a;
+    }
+    if (s >= 128u) {
+        r.hi = 0u;
+        r.lo = 0u;
+    } else if (s >= 64u) {
+        r.lo = a.hi >> (s - 64u);
+        r.hi = 0u;
+    } else {
+        r.lo = (a.lo >> s) | ((a.hi & ((UINT64_C(1) << s) - 1u)) << (64u - s));
+        r.hi = a.hi >> s;
+    }
+    return r;
+}
+
+/* a * 2^s for s < 64 (callers keep the result below 2^128). */
+static u128_t u128_shl(u128_t a, unsigned s)
+{
+    u128_t r;
+    if (s == 0u) {
+        return a;
+    }
+    r.hi = ((a.hi & (UINT64_MAX >> s)) << s) | (a.lo >> (64u - s));
+    r.lo = (a.lo & (UINT64_MAX >> s)) << s;
+    return r;
+}
+
+static u128_t u128_pow2(unsigned s)
+{
+    u128_t r;
+    r.hi = (s >= 64u) ? (UINT64_C(1) << (s - 64u)) : 0u;
+    r.lo = (s >= 64u) ? 0u : (UINT64_C(1) << s);
+    return r;
+}
+
+/* ------------------------------------------------------------------------ */
+/* wide arithmetic                                                            */
+/* ------------------------------------------------------------------------ */
+
+static int fits32(int64_t v)
+{
+    return v >= INT32_MIN && v <= INT32_MAX;
+}
+
+/*
+ * round(a * b / 2^s) for int64 a and int32 b: two 32x32 products.
+ * a = ah 2^32 + al (al in [0, 2^32)), a b = H 2^32 + ll with
+ * H = ah b + floor(al b / 2^32) (|H| <= 2^62 + 2^31) and ll in [0, 2^32).
+ * s <= 32: H 2^(32-s) + round-half-up of ll / 2^s (H 2^32 is a multiple
+ * of 2^s); s > 32: round(H / 2^(s-32)) (ll < 2^32 cannot move the floor of
+ * a multiple of 2^32 plus the bias 2^(s-1)).  Saturating.
+ */
+static int64_t mul64x32(int64_t a, int32_t b, unsigned s)
+{
+    int64_t ah = pfx_fixed_shr64_floor(a, 32u);
+    int64_t lo = (int64_t)((uint64_t)a & UINT64_C(0xFFFFFFFF)) * b; /* |.| < 2^63 */
+    int64_t h = ah * b + pfx_fixed_shr64_floor(lo, 32u);
+    uint64_t ll = (uint64_t)lo & UINT64_C(0xFFFFFFFF);
+    if (s > 32u) {
+        return pfx_mixture_shr_round(h, s - 32u);
+    }
+    if (s == 0u) {
+        return fits32(h) ? h * (INT64_C(1) << 32) + (int64_t)ll : (h < 0 ? INT64_MIN : INT64_MAX);
+    }
+    /* |h 2^(32-s)| < 2^63 exactly when |h| < 2^(31+s) (always for s = 32);
+     * the added rounding term (<= 2^(32-s)) saturates with the sum. */
+    if (s < 32u && (h >= (INT64_C(1) << (31u + s)) || h < -(INT64_C(1) << (31u + s)))) {
+        return (h < 0) ? INT64_MIN : INT64_MAX;
+    }
+    return pfx_fixed_add64_sat(h * (INT64_C(1) << (32u - s)), (int64_t)((ll + (UINT64_C(1) << (s - 1u))) >> s));
+}
+
+/* Scaling: Qa * Qb >> s.  Overflow: the product is exact (two 32x32
+ * products when one factor fits 32 bits, else four: 128 bits, < 2^126);
+ * the rounding bias (< 2^127) cannot carry out; the result saturates to
+ * int64.  Rounding: once, to nearest, ties toward +infinity (a negative
+ * magnitude gets 2^(s-1) - 1 as its bias). */
+int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
+{
+    u128_t p;
+    int negative;
+    if (fits32(b)) {
+        if (fits32(a)) {
+            return pfx_mixture_shr_round(a * b, s); /* |a b| <= 2^62 */
+        }
+        return mul64x32(a, (int32_t)b, s);
+    }
+    if (fits32(a)) {
+        return mul64x32(b, (int32_t)a, s);
+    }
+    negative = (a < 0) != (b < 0); /* neither is 0 here */
+    p = u128_mul(mag64(a), mag64(b));
+    if (s >= 128u) {
+        return 0; /* |a b| / 2^128 < 1/4 */
+    }
+    if (s > 0u) {
+        u128_t bias = u128_pow2(s - 1u);
+        if (negative) {
+            bias = u128_sub(bias, u128_pow2(0u));
+        }
+        p = u128_shr(u128_add(p, bias), s);
+    }
+    if (p.hi != 0u) {
+        return negative ? INT64_MIN : INT64_MAX;
+    }
+    if (!negative) {
+        return (p.lo > (uint64_t)INT64_MAX) ? INT64_MAX : (int64_t)p.lo;
+    }
+    if (p.lo >= (UINT64_C(1) << 63)) {
+        return INT64_MIN;
+    }
+    return -(int64_t)p.lo;
+}
+
+int pfx_mixture_cmp_products(uint64_t a, uint64_t b, uint64_t c, uint64_t d)
+{
+    return u128_cmp(u128_mul(a, b), u128_mul(c, d));
+}
+
+/* x is rounded to its top 32 bits (round-half-up of the dropped part; a
+ * carry to 2^32 is renormalised), so 1/x keeps a relative error below
+ * 2^-32 + 2^-31 (pfx_fixed_recip is correctly rounded). */
+pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r)
+{
+    unsigned k = 0u;
+    uint64_t xn = x;
+    pfx_mant_q30_t mant;
+    unsigned shift;
+    pfx_status_t st;
+    if (r == NULL) {
+        return PFX_ERR_ARG;
+    }
+    if (x == 0u) {
+        r->mant = 0;
+        r->shift = 0u;
+        return PFX_ERR_DOMAIN;
+    }
+    if (x > UINT32_MAX) {
+        k = 32u - pfx_fixed_clz64(x); /* 1..32: x >> k < 2^32 */
+        xn = (x >> k) + ((x >> (k - 1u)) & 1u);
+        if (xn > UINT32_MAX) {
+            xn >>= 1;
+            k += 1u;
+        }
+    }
+    st = pfx_fixed_recip((uint32_t)xn, &mant, &shift);
+    r->mant = mant;
+    r->shift = shift + k;
+    return st;
+}
+
+/* num * 2^frac / x = num * mant * 2^(frac - shift): one mul64 (exact
+ * product, one rounding) or, when frac > shift, a saturating left shift. */
+int64_t pfx_mixture_mul_recip(int64_t num, const pfx_recip64_t *r, unsigned frac)
+{
+    if (r->shift >= frac) {
+        return pfx_mixture_mul(num, r->mant, r->shift - frac);
+    }
+    return pfx_fixed_shl64_sat(pfx_mixture_mul(num, r->mant, 0u), frac - r->shift);
+}
+
+/* 2^x in Q40 for x <= 0 (Q16): mant (Q30, [1, 2)) * 2^(floor(x) + 10).
+ * floor(x) = 0 only for x = 0 (2^40 exactly); otherwise the shift is a
+ * right shift, rounded once.  Error <= 0.63 LSB of the mantissa scaled
+ * down, plus 0.5 LSB. */
+int64_t pfx_mixture_lin_q40(int64_t x)
+{
+    pfx_mant_q30_t mant;
+    int32_t e;
+    if (x >= 0) {
+        return ONE_Q40;
+    }
+    if (x < -(INT64_C(41) << 16)) {
+        return 0;
+    }
+    (void)pfx_fixed_exp2_split((pfx_log2_q16_t)x, &mant, &e); /* e in [-41, -1] */
+    if (e + 10 >= 0) {
+        return (int64_t)mant * (INT64_C(1) << (unsigned)(e + 10)); /* <= 2^31 * 2^9 */
+    }
+    return pfx_mixture_shr_round((int64_t)mant, (unsigned)(-(e + 10)));
+}
+
+/* Saturate to the Q20 range; a pxy with pxy^2 > pxx pyy - 1 (only ever off
+ * by rounding, or after saturation) becomes +-floor(sqrt(pxx pyy - 1)), so
+ * det >= 1 (Q40).  pxx, pyy <= 2^31 - 1: the products fit in int64. */
+pfx_status_t pfx_mixture_store_cov(int64_t pxx, int64_t pxy, int64_t pyy, pfx_component_t *out)
+{
+    int64_t a, b, c;
+    if (pxx <= 0 || pyy <= 0) {
+        return PFX_ERR_DEGENERATE;
+    }
+    a = (pxx > INT32_MAX) ? INT32_MAX : pxx;
+    c = (pyy > INT32_MAX) ? INT32_MAX : pyy;
+    b = pfx_fixed_clamp64(pxy, -(int64_t)INT32_MAX, INT32_MAX);
+    if (b * b > a * c - 1) {
+        int64_t m = (int64_t)pfx_fixed_isqrt_u64((uint64_t)(a * c - 1));
+        b = (b < 0) ? -m : m;
+    }
+    out->pxx = (pfx_area_q20_t)a;
+    out->pxy = (pfx_area_q20_t)b;
+    out->pyy = (pfx_area_q20_t)c;
+    return PFX_OK;
+}
+
+/* ------------------------------------------------------------------------ */
+/* checks and eigenvalues                                                     */
+/* ------------------------------------------------------------------------ */
+
+pfx_status_t pfx_mixture_check(const pfx_component_t *c, uint32_t n)
+{
+    uint32_t k;
+    if (c == NULL && n > 0u) {
+        return PFX_ERR_ARG;
+    }
+    if (n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    for (k = 0u; k < n; ++k) {
+        /* |int32 * int32| <= 2^62: exact in int64. */
+        if (c[k].pxx < 0 || c[k].pyy < 0 ||
+            (int64_t)c[k].pxx * c[k].pyy < (int64_t)c[k].pxy * c[k].pxy) {
+            return PFX_ERR_DEGENERATE;
+        }
+    }
+    return PFX_OK;
+}
+
+/* Seed (relative error < 2^-8, the middle of a 1/128-wide interval of M)
+ * and three Newton steps y <- y (3 - M y^2) / 2, each three 32x32 -> 64
+ * multiplies: y^2 (Q30, <= 2^32), M y^2 (Q30, ~2^30, product < 2^63),
+ * y (3 - M y^2) / 2 (Q30).  The error is squared by each step; after three
+ * only the truncations remain: about 2^-29 relative. */
+uint64_t pfx_mixture_rsqrt_q30(uint64_t m)
+{
+    uint64_t m32 = m >> 32; /* M in Q32, [2^30, 2^32) */
+    uint64_t y;
+    unsigned it;
+    if (m < (UINT64_C(1) << 62)) {
+        return 0u; /* outside the contract */
+    }
+    y = (uint64_t)k_rsqrt_seed_q15[(m >> 57) - 32u] << 15;
+    for (it = 0u; it < 3u; ++it) {
+        uint64_t t = (y * y) >> 30;
+        uint64_t u = (m32 * t) >> 32;
+        y = (y * ((UINT64_C(3) << 30) - u)) >> 31;
+    }
+    return y;
+}
+
+/* sqrt(m) ~ (m / 2^32) * y / 2^30 for m = x 2^z (z even, m >= 2^62), then
+ * shifted back by z/2: within a few units of floor(sqrt(x)); two bounded
+ * correction loops make it floor(sqrt(x)) exactly (r <= 2^32 - 1 so r^2
+ * never wraps), and the rounding is exact: sqrt(x) is nearer r + 1 iff
+ * x - r^2 > r. */
+uint64_t pfx_mixture_isqrt_round(uint64_t x)
+{
+    unsigned z, k;
+    uint64_t r;
+    if (x == 0u) {
+        return 0u;
+    }
+    z = pfx_fixed_clz64(x) & ~1u;
+    r = ((((x << z) >> 32) * pfx_mixture_rsqrt_q30(x << z)) >> 30) >> (z / 2u);
+    if (r > UINT32_MAX) {
+        r = UINT32_MAX;
+    }
+    for (k = 0u; k < 16u && r * r > x; ++k) {
+        --r;
+    }
+    for (k = 0u; k < 16u && r < UINT32_MAX && (r + 1u) * (r + 1u) <= x; ++k) {
+        ++r;
+    }
+    return r + ((x - r * r > r) ? 1u : 0u);
+}
+
+/* Scaling: Q20 in, Q20 out.  t = (a-c)^2 + 4 b^2 (Q40) is exact in 128
+ * bits; when it fits 64 bits sqrt(t) is rounded once (0.5 LSB), else t/4 is
+ * used (|result| > 2^31 then, so it saturates anyway).  The final halving
+ * (a + c + sqrt t) / 2 rounds once more: error <= 1 LSB. */
+pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c)
+{
+    int64_t a, b, d, root;
+    u128_t t;
+    if (c == NULL) {
+        return 0;
+    }
+    a = c->pxx;
+    d = c->pyy;
+    b = c->pxy;
+    t = u128_add(u128_mul(mag64(a - d), mag64(a - d)), u128_shl(u128_mul(mag64(b), mag64(b)), 2u));
+    if (t.hi == 0u) {
+        root = (int64_t)pfx_mixture_isqrt_round(t.lo); /* <= 2^32 */
+    } else {
+        t = u128_shr(t, 2u);
+        root = 2 * (int64_t)pfx_mixture_isqrt_round(t.hi == 0u ? t.lo : UINT64_MAX);
+    }
+    return pfx_mixture_sat32(pfx_mixture_shr_round(a + d + root, 1u));
+}
+
+/* ------------------------------------------------------------------------ */
+/* weights                                                                    */
+/* ------------------------------------------------------------------------ */
+
+static int32_t max_log2w(const pfx_component_t *c, uint32_t n)
+{
+    uint32_t k;
+    int32_t m = c[0].log2w;
+    for (k = 1u; k < n; ++k) {
+        if (c[k].log2w > m) {
+            m = c[k].log2w;
+        }
+    }
+    return m;
+}
+
+/* Scaling: Q16 log2 in, Q30 terms (each <= 2^30, n <= 64: sum < 2^37).
+ * log2(sum / 2^30) from pfx_fixed_log2_u64 (0.70 LSB).  Saturating. */
+pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n)
+{
+    uint32_t k;
+    int32_t m;
+    uint64_t sum = 0u;
+    pfx_log2_q16_t l2;
+    int64_t lse;
+    if (n == 0u) {
+        return PFX_OK;
+    }
+    if (c == NULL || n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    m = max_log2w(c, n);
+    for (k = 0u; k < n; ++k) {
+        sum += (uint64_t)pfx_fixed_exp2_frac_sat(pfx_mixture_sat32((int64_t)c[k].log2w - m));
+    }
+    (void)pfx_fixed_log2_u64(sum, &l2); /* sum >= 2^30 > 0 */
+    lse = (int64_t)m + l2 - (INT64_C(30) << 16);
+    for (k = 0u; k < n; ++k) {
+        c[k].log2w = pfx_mixture_sat32((int64_t)c[k].log2w - lse);
+    }
+    return PFX_OK;
+}
+
+/* ------------------------------------------------------------------------ */
+/* moments                                                                    */
+/* ------------------------------------------------------------------------ */
+
+/*
+ * Weighted moments of the members idx[0..n) of c, with linear weights w[]
+ * (indexed by component, any positive scale up to 2^46) or, when w is
+ * NULL, 2^(log2w - lmax) in Q40.  Writes mean and covariance of out (not
+ * its weight); *wsum_out (if given) gets the sum of the weights.
+ *
+ * Scaling: fractions a_k = w_k / wsum in Q30 (one reciprocal); offsets
+ * from the first member's mean, Q10 clamped to +-2^30; the mean offset
+ * sum a_k d_k is Q40 (sum a_k ~ 2^30: |.| <= 2^61); the covariance sums
+ * a_k (P_k + e_k e_k^T) in Q50 (saturating adds), e_k in Q20.
+ * Rounding: a_k, the Q20 mean offset, e e^T to Q20, the final Q50 -> Q20.
+ */
+static pfx_status_t moments_core(const pfx_component_t *c, const uint8_t *idx, uint32_t n, const int64_t *w,
+                                 int32_t lmax, pfx_component_t *out, int64_t *wsum_out)
+{
+    uint32_t k;
+    int64_t wsum = 0;
+    int64_t ax = 0, ay = 0, mx, my;
+    int64_t sxx = 0, sxy = 0, syy = 0;
+    pfx_recip64_t r;
+    const pfx_component_t *ref = &c[idx[0]];
+    for (k = 0u; k < n; ++k) {
+        wsum += (w != NULL) ? w[idx[k]] : pfx_mixture_lin_q40((int64_t)c[idx[k]].log2w - lmax);
+    }
+    if (wsum_out != NULL) {
+        *wsum_out = wsum;
+    }
+    if (wsum <= 0 || pfx_mixture_recip64((uint64_t)wsum, &r) != PFX_OK) {
+        return PFX_ERR_DEGENERATE;
+    }
+    for (k = 0u; k < n; ++k) {
+        const pfx_component_t *ck = &c[idx[k]];
+        int64_t wk = (w != NULL) ? w[idx[k]] : pfx_mixture_lin_q40((int64_t)ck->log2w - lmax);
+        int64_t a = pfx_mixture_mul_recip(wk, &r, 30u); /* <= 2^30 (+1) */
+        ax += a * pfx_mixture_offset(ref->x, ck->x);    /* <= 2^31 * 2^30 each, sum a ~ 2^30 */
+        ay += a * pfx_mixture_offset(ref->y, ck->y);
+    }
+    mx = pfx_mixture_shr_round(ax, 20u); /* Q20 offset of the mean from ref */
+    my = pfx_mixture_shr_round(ay, 20u);
+    for (k = 0u; k < n; ++k) {
+        const pfx_component_t *ck = &c[idx[k]];
+        int64_t wk = (w != NULL) ? w[idx[k]] : pfx_mixture_lin_q40((int64_t)ck->log2w - lmax);
+        int64_t a = pfx_mixture_mul_recip(wk, &r, 30u);
+        int64_t ex = pfx_mixture_offset(ref->x, ck->x) * 1024 - mx; /* Q20, |.| <= 2^41 */
+        int64_t ey = pfx_mixture_offset(ref->y, ck->y) * 1024 - my;
+        /* a * P <= 2^31 * 2^31; the spread term saturates on its own. */
+        sxx = pfx_fixed_add64_sat(pfx_fixed_add64_sat(sxx, a * ck->pxx),
+                                  pfx_mixture_mul(a, pfx_mixture_mul(ex, ex, 20u), 0u));
+        sxy = pfx_fixed_add64_sat(pfx_fixed_add64_sat(sxy, a * ck->pxy),
+                                  pfx_mixture_mul(a, pfx_mixture_mul(ex, ey, 20u), 0u));
+        syy = pfx_fixed_add64_sat(pfx_fixed_add64_sat(syy, a * ck->pyy),
+                                  pfx_mixture_mul(a, pfx_mixture_mul(ey, ey, 20u), 0u));
+    }
+    out->x = pfx_mixture_sat32((int64_t)ref->x + pfx_mixture_shr_round(mx, 10u));
+    out->y = pfx_mixture_sat32((int64_t)ref->y + pfx_mixture_shr_round(my, 10u));
+    return pfx_mixture_store_cov(pfx_mixture_shr_round(sxx, 30u), pfx_mixture_shr_round(sxy, 30u),
+                                 pfx_mixture_shr_round(syy, 30u), out);
+}
+
+/* log2 of a Q40 linear weight relative to lmax, back to an absolute Q16 log2 weight. */
+static int32_t log2_of_q40(int64_t w, int32_t lmax)
+{
+    pfx_log2_q16_t l2;
+    if (w <= 0) {
+        return INT32_MIN;
+    }
+    (void)pfx_fixed_log2_u64((uint64_t)w, &l2);
+    return pfx_mixture_sat32((int64_t)lmax + l2 - (INT64_C(40) << 16));
+}
+
+pfx_status_t pfx_mixture_moments(const pfx_component_t *c, uint32_t n, pfx_component_t *out)
+{
+    uint8_t idx[PFX_MAX_CANDIDATES];
+    uint32_t k;
+    int32_t lmax;
+    int64_t wsum;
+    pfx_status_t st;
+    if (c == NULL || out == NULL || n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    if (n == 0u) {
+        return PFX_ERR_EMPTY;
+    }
+    for (k = 0u; k < n; ++k) {
+        idx[k] = (uint8_t)k;
+    }
+    lmax = max_log2w(c, n);
+    st = moments_core(c, idx, n, NULL, lmax, out, &wsum);
+    out->log2w = log2_of_q40(wsum, lmax);
+    return st;
+}
+
+/* ------------------------------------------------------------------------ */
+/* pruning and the keep-heaviest stream                                       */
+/* ------------------------------------------------------------------------ */
+
+pfx_status_t pfx_mixture_prune(pfx_component_t *c, uint32_t *n, pfx_log2_q16_t log2_ratio)
+{
+    uint32_t k, kept = 0u;
+    int64_t floor_;
+    if (c == NULL || n == NULL || *n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    if (*n == 0u) {
+        return PFX_OK;
+    }
+    floor_ = (int64_t)max_log2w(c, *n) + log2_ratio;
+    for (k = 0u; k < *n; ++k) {
+        if ((int64_t)c[k].log2w >= floor_) {
+            if (kept != k) {
+                c[kept] = c[k];
+            }
+            ++kept;
+        }
+    }
+    *n = kept;
+    return PFX_OK;
+}
+
+pfx_status_t pfx_mixture_stream_push(pfx_component_t *buf, uint32_t *count, uint32_t cap, const pfx_component_t *c)
+{
+    uint32_t k, light;
+    if (buf == NULL || count == NULL || c == NULL || cap > PFX_MAX_CANDIDATES || *count > cap) {
+        return PFX_ERR_ARG;
+    }
+    if (*count < cap) {
+        buf[(*count)++] = *c;
+        return PFX_OK;
+    }
+    if (cap == 0u) {
+        return PFX_OK;
+    }
+    light = 0u;
+    for (k = 1u; k < cap; ++k) {
+        if (buf[k].log2w <= buf[light].log2w) {
+            light = k; /* the latest among equally light ones */
+        }
+    }
+    if (c->log2w <= buf[light].log2w) {
+        return PFX_OK; /* lighter, or a tie that the earlier one wins */
+    }
+    memmove(&buf[light], &buf[light + 1u], (size_t)(cap - 1u - light) * sizeof(buf[0]));
+    buf[cap - 1u] = *c;
+    return PFX_OK;
+}
+
+/* ------------------------------------------------------------------------ */
+/* Gaussian product                                                           */
+/* ------------------------------------------------------------------------ */
+
+/*
+ * Scaling (raw integers; S = Pa + Pb in Q20):
+ *   det = Sa Sc - Sb^2, Q40, exact in uint64 (Sa, Sc, |Sb| < 2^32);
+ *   S^-1 = adj(S) * 2^50 / det in Q30 [1/m^2] (one reciprocal);
+ *   K = Pa S^-1 in Q30 (Q20 * Q30 >> 20); mean offset K d in Q20
+ *   (Q30 * Q20 >> 30); P = K Pb in Q30 (Q30 * Q20 >> 20), off-diagonal
+ *   ((K Pb)_xy + (K Pb)_yx) / 2, rounded once to Q20;
+ *   q = d^T S^-1 d in Q16 (v = S^-1 d in Q30 [1/m], d.v >> 34);
+ *   log2 z = -log2(2 pi) - log2(det)/2 - q / (2 ln 2), Q16.
+ * Overflow: every int64 x int64 product goes through mul64 (saturating);
+ * the sums of two saturate.  Realistic inputs stay far from saturation.
+ * Rounding: one per mul64; the Q16 weight is within ~2 LSB of exact for
+ * the given Q10/Q20 inputs.
+ */
+pfx_status_t pfx_mixture_product_local(const pfx_component_t *a, int64_t dx, int64_t dy, int32_t bxx, int32_t bxy,
+                                       int32_t byy, int64_t extra_log2w, pfx_component_t *out)
+{
+    int64_t sa = (int64_t)a->pxx + bxx, sb = (int64_t)a->pxy + bxy, sc = (int64_t)a->pyy + byy;
+    uint64_t ac, bb, det;
+    pfx_recip64_t rd;
+    int64_t ixx, ixy, iyy;
+    int64_t kxx, kxy, kyx, kyy;
+    int64_t mx, my, qxx, qxy, qyx, qyy, vx, vy, q, z;
+    pfx_log2_q16_t l2det;
+    pfx_component_t res;
+    pfx_status_t st;
+
+    if (sa <= 0 || sc <= 0) {
+        return PFX_ERR_DEGENERATE;
+    }
+    ac = (uint64_t)sa * (uint64_t)sc; /* < 2^64 */
+    bb = mag64(sb) * mag64(sb);       /* < 2^64 */
+    if (ac <= bb) {
+        return PFX_ERR_DEGENERATE;
+    }
+    det = ac - bb;
+    (void)pfx_mixture_recip64(det, &rd);
+    ixx = pfx_mixture_mul_recip(sc, &rd, 50u);
+    ixy = pfx_mixture_mul_recip(-sb, &rd, 50u);
+    iyy = pfx_mixture_mul_recip(sa, &rd, 50u);
+
+    kxx = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxx, ixx, 20u), pfx_mixture_mul(a->pxy, ixy, 20u));
+    kxy = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxx, ixy, 20u), pfx_mixture_mul(a->pxy, iyy, 20u));
+    kyx = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxy, ixx, 20u), pfx_mixture_mul(a->pyy, ixy, 20u));
+    kyy = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxy, ixy, 20u), pfx_mixture_mul(a->pyy, iyy, 20u));
+
+    mx = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, dx, 30u), pfx_mixture_mul(kxy, dy, 30u));
+    my = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, dx, 30u), pfx_mixture_mul(kyy, dy, 30u));
+
+    qxx = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, bxx, 20u), pfx_mixture_mul(kxy, bxy, 20u));
+    qxy = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, bxy, 20u), pfx_mixture_mul(kxy, byy, 20u));
+    qyx = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, bxx, 20u), pfx_mixture_mul(kyy, bxy, 20u));
+    qyy = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, bxy, 20u), pfx_mixture_mul(kyy, byy, 20u));
+    st = pfx_mixture_store_cov(pfx_mixture_shr_round(qxx, 10u),
+                               pfx_mixture_shr_round(pfx_fixed_add64_sat(qxy, qyx), 11u),
+                               pfx_mixture_shr_round(qyy, 10u), &res);
+    if (st != PFX_OK) {
+        return st;
+    }
+
+    vx = pfx_fixed_add64_sat(pfx_mixture_mul(ixx, dx, 20u), pfx_mixture_mul(ixy, dy, 20u));
+    vy = pfx_fixed_add64_sat(pfx_mixture_mul(ixy, dx, 20u), pfx_mixture_mul(iyy, dy, 20u));
+    q = pfx_fixed_add64_sat(pfx_mixture_mul(dx, vx, 34u), pfx_mixture_mul(dy, vy, 34u));
+    if (q < 0) {
+        q = 0; /* only by rounding: S^-1 is positive definite */
+    }
+    (void)pfx_fixed_log2_u64(det, &l2det);
+    z = -(int64_t)PFX_LOG2_2PI_Q16 - pfx_mixture_shr_round((int64_t)l2det - (INT64_C(40) << 16), 1u) -
+        pfx_mixture_mul(q, PFX_INV_2LN2_Q30, 30u);
+
+    res.x = pfx_mixture_sat32((int64_t)a->x + pfx_mixture_shr_round(mx, 10u));
+    res.y = pfx_mixture_sat32((int64_t)a->y + pfx_mixture_shr_round(my, 10u));
+    res.log2w = pfx_mixture_sat32(pfx_fixed_add64_sat(pfx_fixed_add64_sat((int64_t)a->log2w, extra_log2w), z));
+    *out = res;
+    return PFX_OK;
+}
+
+pfx_status_t pfx_mixture_product(const pfx_component_t *a, const pfx_component_t *b, pfx_component_t *out)
+{
+    if (a == NULL || b == NULL || out == NULL) {
+        return PFX_ERR_ARG;
+    }
+    return pfx_mixture_product_local(a, pfx_mixture_offset(a->x, b->x) * 1024, pfx_mixture_offset(a->y, b->y) * 1024,
+                                     b->pxx, b->pxy, b->pyy, b->log2w, out);
+}
+
+/* ------------------------------------------------------------------------ */
+/* merging                                                                    */
+/* ------------------------------------------------------------------------ */
+
+pfx_status_t pfx_mixture_merge(const pfx_component_t *a, const pfx_component_t *b, pfx_component_t *out)
+{
+    pfx_component_t pair[2];
+    const uint8_t idx[2] = {0u, 1u};
+    int32_t lmax;
+    int64_t wsum;
+    pfx_status_t st;
+    if (a == NULL || b == NULL || out == NULL) {
+        return PFX_ERR_ARG;
+    }
+    pair[0] = *a;
+    pair[1] = *b;
+    lmax = max_log2w(pair, 2u);
+    st = moments_core(pair, idx, 2u, NULL, lmax, out, &wsum);
+    if (st == PFX_OK) {
+        out->log2w = log2_of_q40(wsum, lmax);
+    }
+    return st;
+}
+
+/*
+ * Mahalanobis gate, division-free and exact: with S = Pa + Pb (Q20, int64,
+ * entries < 2^32) and d = mu_b - mu_a (Q10, clamped to +-2^30),
+ *   d^T S^-1 d <= g  <=>  (Sc dx^2 - 2 Sb dx dy + Sa dy^2) * 2^16 <= g * det
+ * (Q40 * 2^16 against Q16 * Q40).  Left side < 2^96 * 2^16, right < 2^95:
+ * 128 bits.  A quick test first: q >= |d|^2 / trace(S), so |d|^2 > g tr(S)
+ * (in 64 bits, rounded up) rejects without the 128-bit work.
+ */
+int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, pfx_ratio_q16_t gate)
+{
+    int64_t sa, sb, sc, dx, dy;
+    uint64_t ac, bb, det, dd, lim;
+    u128_t lhs, cross, rhs;
+    if (a == NULL || b == NULL || gate < 0) {
+        return 0;
+    }
+    sa = (int64_t)a->pxx + b->pxx;
+    sb = (int64_t)a->pxy + b->pxy;
+    sc = (int64_t)a->pyy + b->pyy;
+    if (sa < 0 || sc < 0) {
+        return 0;
+    }
+    ac = (uint64_t)sa * (uint64_t)sc;
+    bb = mag64(sb) * mag64(sb);
+    if (ac <= bb) {
+        return 0; /* singular: the reference's inverse is inf/NaN, never within */
+    }
+    det = ac - bb;
+    dx = pfx_mixture_offset(a->x, b->x);
+    dy = pfx_mixture_offset(a->y, b->y);
+    dd = (uint64_t)(dx * dx) + (uint64_t)(dy * dy); /* <= 2^61 */
+    lim = (((uint64_t)gate * (uint64_t)(sa + sc)) >> 16) + 1u; /* gate < 2^31, sa + sc < 2^33 */
+    if (dd > lim) {
+        return 0;
+    }
+    lhs = u128_add(u128_mul((uint64_t)sc, (uint64_t)(dx * dx)), u128_mul((uint64_t)sa, (uint64_t)(dy * dy)));
+    cross = u128_mul(2u * mag64(sb), mag64(dx) * mag64(dy));
+    if (sb != 0 && dx != 0 && dy != 0 && ((sb < 0) + (dx < 0) + (dy < 0)) % 2 == 0) {
+        /* sb dx dy > 0: the cross term is subtracted (exactly >= 0 for PSD S) */
+        if (u128_cmp(cross, lhs) > 0) {
+            lhs.hi = 0u;
+            lhs.lo = 0u;
+        } else {
+            lhs = u128_sub(lhs, cross);
+        }
+    } else {
+        lhs = u128_add(lhs, cross);
+    }
+    rhs = u128_mul((uint64_t)gate, det);
+    return u128_cmp(u128_shl(lhs, 16u), rhs) <= 0;
+}
+
+/* ------------------------------------------------------------------------ */
+/* reductions                                                                 */
+/* ------------------------------------------------------------------------ */
+
+/* Heaviest first, stable (insertion sort: equal weights keep index order). */
+static void order_heaviest(const pfx_component_t *c, uint32_t n, uint8_t *order)
+{
+    uint32_t i, j;
+    for (i = 0u; i < n; ++i) {
+        uint8_t cur = (uint8_t)i;
+        j = i;
+        while (j > 0u && c[order[j - 1u]].log2w < c[cur].log2w) {
+            order[j] = order[j - 1u];
+            --j;
+        }
+        order[j] = cur;
+    }
+}
+
+pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s)
+{
+    uint32_t i, k, nseeds = 0u, nout = 0u;
+    int32_t lmax;
+    if (c == NULL || n == NULL || s == NULL || *n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    if (*n <= 1u || gate <= 0) {
+        return PFX_OK;
+    }
+    order_heaviest(c, *n, s->order);
+    for (i = 0u; i < *n; ++i) {
+        uint8_t k8 = s->order[i];
+        uint32_t si;
+        for (si = 0u; si < nseeds; ++si) {
+            if (pfx_mixture_within_gate(&c[k8], &c[s->seeds[si]], gate)) {
+                break;
+            }
+        }
+        if (si < nseeds) {
+            s->group[k8] = s->seeds[si];
+        } else {
+            s->seeds[nseeds++] = k8;
+            s->group[k8] = k8;
+        }
+    }
+    if (nseeds == *n) {
+        return PFX_OK;
+    }
+    lmax = max_log2w(c, *n);
+    /* Groups in the index order of their seeds (the reference's sorted(seeds)),
+     * members in index order. */
+    for (k = 0u; k < *n; ++k) {
+        uint32_t m = 0u, j;
+        int64_t wsum;
+        if (s->group[k] != k) {
+            continue;
+        }
+        for (j = 0u; j < *n; ++j) {
+            if (s->group[j] == k) {
+                s->members[m++] = (uint8_t)j;
+            }
+        }
+        if (m == 1u) {
+            s->tmp[nout++] = c[k]; /* a lone seed stays as it is */
+            continue;
+        }
+        if (moments_core(c, s->members, m, NULL, lmax, &s->tmp[nout], &wsum) != PFX_OK) {
+            continue; /* only a saturated, degenerate merge: drop the group */
+        }
+        s->tmp[nout].log2w = log2_of_q40(wsum, lmax);
+        ++nout;
+    }
+    memcpy(c, s->tmp, (size_t)nout * sizeof(c[0]));
+    *n = nout;
+    return PFX_OK;
+}
+
+/* Upper-triangle index of pair (i, j), i < j < PFX_MAX_CANDIDATES. */
+static uint32_t pair_index(uint32_t i, uint32_t j)
+{
+    return i * PFX_MAX_CANDIDATES - (i * (i + 1u)) / 2u + (j - i - 1u);
+}
+
+/* Monotone packing of a cost v (Q48) into 31 bits: exponent (bit length,
+ * 1..63) above the 24 bits that follow the leading one (truncated), so
+ * that packed order is value order with a relative resolution of 2^-24.
+ * v <= 0 packs to 0 (Runnalls' cost is >= 0; only rounding goes below). */
+static uint32_t cost_pack(int64_t v)
+{
+    unsigned e;
+    uint64_t top;
+    if (v <= 0) {
+        return 0u;
+    }
+    e = 64u - pfx_fixed_clz64((uint64_t)v); /* 1..63 */
+    top = ((uint64_t)v << (64u - e)) >> 39;   /* 25 bits, leading one at bit 24 */
+    return ((uint32_t)e << 24) | (uint32_t)(top & UINT64_C(0xFFFFFF));
+}
+
+/* log2 of det P in Q16 from the raw Q40 determinant (clamped to >= 1). */
+static int32_t logdet_of(const pfx_component_t *c)
+{
+    int64_t det = (int64_t)c->pxx * c->pyy - (int64_t)c->pxy * c->pxy; /* each <= 2^62 */
+    pfx_log2_q16_t l2;
+    (void)pfx_fixed_log2_u64((uint64_t)(det < 1 ? 1 : det), &l2);
+    return l2;
+}
+
+/* B' = (w_i + w_j) log2|P_ij| - w_i log2|P_i| - w_j log2|P_j| in Q48
+ * (Q40 weights normalised to a total of 2^40, Q16 logs, each term >> 8:
+ * |w log2det| <= 2^41 * 2^22 fits).  Twice Runnalls' B in bits; the
+ * factor does not change the argmin. */
+static uint32_t pair_cost(const pfx_component_t *c, const pfx_mixture_scratch_t *s, uint32_t i, uint32_t j)
+{
+    pfx_component_t m;
+    uint8_t idx[2];
+    int64_t b;
+    idx[0] = (uint8_t)i;
+    idx[1] = (uint8_t)j;
+    if (moments_core(c, idx, 2u, s->weight, 0, &m, NULL) != PFX_OK) {
+        return UINT32_MAX - 1u; /* never chosen before a real pair */
+    }
+    b = pfx_mixture_mul(s->weight[i] + s->weight[j], logdet_of(&m), 8u);
+    b = pfx_fixed_sub64_sat(b, pfx_mixture_mul(s->weight[i], s->logdet[i], 8u));
+    b = pfx_fixed_sub64_sat(b, pfx_mixture_mul(s->weight[j], s->logdet[j], 8u));
+    return cost_pack(b);
+}
+
+pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_mixture_scratch_t *s)
+{
+    uint32_t i, j, k, nn, step, out;
+    int32_t lmax;
+    int64_t wsum = 0;
+    pfx_recip64_t r;
+    if (c == NULL || n == NULL || s == NULL || *n > PFX_MAX_CANDIDATES) {
+        return PFX_ERR_ARG;
+    }
+    nn = *n;
+    if (nn <= cap) {
+        return PFX_OK;
+    }
+    if (cap == 0u) {
+        return PFX_ERR_ARG;
+    }
+    /* Weights normalised to a total of 2^40 (the reference normalises to 1). */
+    lmax = max_log2w(c, nn);
+    for (k = 0u; k < nn; ++k) {
+        s->weight[k] = pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
+        wsum += s->weight[k];
+    }
+    (void)pfx_mixture_recip64((uint64_t)wsum, &r); /* wsum >= 2^40 */
+    for (k = 0u; k < nn; ++k) {
+        s->weight[k] = pfx_mixture_mul_recip(s->weight[k], &r, 40u);
+        if (s->weight[k] < 1) {
+            s->weight[k] = 1; /* below 2^-40 of the total: kept as the smallest weight */
+        }
+        s->logdet[k] = logdet_of(&c[k]);
+        s->alive[k] = 1u;
+    }
+    for (i = 0u; i + 1u < nn; ++i) {
+        for (j = i + 1u; j < nn; ++j) {
+            s->cost[pair_index(i, j)] = pair_cost(c, s, i, j);
+        }
+    }
+    for (step = 0u; step < nn - cap; ++step) {
+        uint32_t bi = 0u, bj = 0u, best = UINT32_MAX;
+        uint8_t idx[2];
+        pfx_component_t m;
+        for (i = 0u; i + 1u < nn; ++i) {
+            if (!s->alive[i]) {
+                continue;
+            }
+            for (j = i + 1u; j < nn; ++j) {
+                uint32_t v;
+                if (!s->alive[j]) {
+                    continue;
+                }
+                v = s->cost[pair_index(i, j)];
+                if (v < best) { /* strict: the first pair in row-major order wins ties */
+                    best = v;
+                    bi = i;
+                    bj = j;
+                }
+            }
+        }
+        if (best == UINT32_MAX) {
+            break;
+        }
+        idx[0] = (uint8_t)bi;
+        idx[1] = (uint8_t)bj;
+        if (moments_core(c, idx, 2u, s->weight, 0, &m, NULL) == PFX_OK) {
+            c[bi].x = m.x;
+            c[bi].y = m.y;
+            c[bi].pxx = m.pxx;
+            c[bi].pxy = m.pxy;
+            c[bi].pyy = m.pyy;
+        }
+        s->weight[bi] = pfx_fixed_add64_sat(s->weight[bi], s->weight[bj]);
+        s->logdet[bi] = logdet_of(&c[bi]);
+        s->alive[bj] = 0u;
+        for (k = 0u; k < nn; ++k) {
+            if (!s->alive[k] || k == bi) {
+                continue;
+            }
+            if (k < bi) {
+                s->cost[pair_index(k, bi)] = pair_cost(c, s, k, bi);
+            } else {
+                s->cost[pair_index(bi, k)] = pair_cost(c, s, bi, k);
+            }
+        }
+    }
+    out = 0u;
+    for (k = 0u; k < nn; ++k) {
+        if (s->alive[k]) {
+            c[out] = c[k];
+            c[out].log2w = log2_of_q40(s->weight[k], 0);
+            ++out;
+        }
+    }
+    *n = out;
+    return pfx_mixture_normalise(c, out);
+}
+
+pfx_status_t pfx_mixture_reduce(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_log2_q16_t log2_ratio,
+                                pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s)
+{
+    pfx_status_t st;
+    if (c == NULL || n == NULL || s == NULL || *n > PFX_MAX_CANDIDATES || cap == 0u) {
+        return PFX_ERR_ARG;
+    }
+    st = pfx_mixture_prune(c, n, log2_ratio);
+    if (st == PFX_OK && *n > cap) {
+        st = pfx_mixture_gate_merge(c, n, gate, s);
+    }
+    if (st == PFX_OK && *n > cap) {
+        return pfx_mixture_runnalls(c, n, cap, s);
+    }
+    if (st != PFX_OK) {
+        return st;
+    }
+    return pfx_mixture_normalise(c, *n);
+}
+
+/* ------------------------------------------------------------------------ */
+/* modes and the point estimate                                               */
+/* ------------------------------------------------------------------------ */
+
+pfx_status_t pfx_mixture_point_estimate(const pfx_component_t *c, uint32_t n, pfx_ratio_q16_t gate,
+                                        pfx_frac_q30_t min_weight, pfx_estimate_t *out)
+{
+    uint8_t order[PFX_MAX_COMPONENTS];
+    uint8_t mode_of[PFX_MAX_COMPONENTS];
+    uint8_t seed[PFX_MAX_COMPONENTS];
+    uint8_t rank[PFX_MAX_COMPONENTS];
+    uint8_t members[PFX_MAX_COMPONENTS];
+    int64_t mode_w[PFX_MAX_COMPONENTS];
+    int64_t w[PFX_MAX_COMPONENTS];
+    int64_t wsum = 0, lim;
+    uint32_t i, j, k, nmodes = 0u, found = 0u, m = 0u;
+    int32_t lmax;
+    pfx_recip64_t r;
+    pfx_component_t mom;
+    pfx_status_t st;
+    if (out == NULL) {
+        return PFX_ERR_ARG;
+    }
+    memset(out, 0, sizeof(*out));
+    if (c == NULL || n > PFX_MAX_COMPONENTS) {
+        return PFX_ERR_ARG;
+    }
+    if (n == 0u) {
+        return PFX_ERR_EMPTY;
+    }
+    lmax = max_log2w(c, n);
+    for (k = 0u; k < n; ++k) {
+        w[k] = pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
+        wsum += w[k];
+    }
+    order_heaviest(c, n, order);
+    for (i = 0u; i < n; ++i) {
+        uint8_t k8 = order[i];
+        for (j = 0u; j < nmodes; ++j) {
+            if (pfx_mixture_within_gate(&c[k8], &c[seed[j]], gate)) {
+                break;
+            }
+        }
+        if (j == nmodes) {
+            seed[nmodes] = k8;
+            mode_w[nmodes] = 0;
+            ++nmodes;
+        }
+        mode_of[k8] = (uint8_t)j;
+        mode_w[j] += w[k8];
+    }
+    /* Modes heaviest first, stable. */
+    for (i = 0u; i < nmodes; ++i) {
+        uint8_t cur = (uint8_t)i;
+        j = i;
+        while (j > 0u && mode_w[rank[j - 1u]] < mode_w[cur]) {
+            rank[j] = rank[j - 1u];
+            --j;
+        }
+        rank[j] = cur;
+    }
+    /* Modes with at least min_weight of the total: w_mode * 2^30 >= min_weight * wsum. */
+    (void)pfx_mixture_recip64((uint64_t)wsum, &r);
+    lim = min_weight;
+    for (i = 0u; i < nmodes; ++i) {
+        if (pfx_mixture_mul_recip(mode_w[rank[i]], &r, 30u) >= lim) {
+            ++found;
+        }
+    }
+    /* The reported mode: the heaviest (it is the first of the kept modes, or
+     * the only one when none reaches min_weight); its moments, whether the
+     * belief has one mode or several. */
+    for (k = 0u; k < n; ++k) {
+        if (mode_of[order[k]] == rank[0]) {
+            members[m++] = order[k];
+        }
+    }
+    st = moments_core(c, members, m, w, 0, &mom, NULL);
+    out->mode_weight = pfx_mixture_sat32(pfx_mixture_mul_recip(mode_w[rank[0]], &r, 30u));
+    out->mode_count = (found > 0u) ? found : 1u;
+    out->x = mom.x;
+    out->y = mom.y;
+    out->pxx = mom.pxx;
+    out->pxy = mom.pxy;
+    out->pyy = mom.pyy;
+    out->components = n;
+    return st;
+}
