@@ -237,7 +237,16 @@ def test_ellipse_95_axes():
 
 def _record(it: int, mean, modes) -> IterationRecord:
     n = len(modes)
-    return IterationRecord(it, np.asarray(mean, float), np.tile(np.eye(2), (n, 1, 1)), np.asarray(modes), np.ones(n, int), 0, 0)
+    return IterationRecord(
+        iteration=it,
+        mean=np.asarray(mean, float),
+        cov=np.tile(np.eye(2), (n, 1, 1)),
+        mode_count=np.asarray(modes),
+        mode_weight=np.ones(n),
+        components=np.ones(n, int),
+        messages_sent=0,
+        bytes_sent=0,
+    )
 
 
 def test_pick_agent_rules():

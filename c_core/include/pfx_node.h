@@ -8,7 +8,7 @@
  * prediction and the point estimate.
  *
  * All state is caller-owned; pfx_node_update needs a pfx_workspace_t
- * (about 14 KiB, contents meaningless between calls) so that nothing large
+ * (14 624 bytes, contents meaningless between calls) so that nothing large
  * lives on the stack.
  *
  * Validation (every entry point): NULL pointers and settings out of their
@@ -69,7 +69,10 @@ pfx_status_t pfx_params_check(const pfx_params_t *p);
 /* bounds: xmin < xmax, ymin < ymax, each within +-2^30 (Q10), else PFX_ERR_ARG. */
 pfx_status_t pfx_node_init(pfx_node_t *node, const pfx_params_t *params, const pfx_len_q10_t bounds[4]);
 void pfx_inbox_clear(pfx_inbox_t *inbox);
-/* Appends one broadcast; PFX_ERR_FULL when PFX_MAX_NEIGHBOURS are in; PFX_ERR_RANGE for a
+/* Appends one broadcast.  A full inbox keeps the PFX_MAX_NEIGHBOURS most informative
+ * (anchors, then agents by the spread of their heaviest component, earlier arrival on
+ * ties): the new one displaces the least informative when it is strictly more
+ * informative (PFX_OK), else it is not kept (PFX_ERR_FULL).  PFX_ERR_RANGE for a
  * negative or absurd range (> params max_range is checked in update, here only < 0);
  * PFX_ERR_DEGENERATE for a belief with count > PFX_MAX_COMPONENTS or a covariance that
  * is not positive semi-definite; PFX_ERR_ARG for sigma <= 0. Inbox unchanged on error.

@@ -890,6 +890,13 @@ static uint32_t pair_cost(const pfx_component_t *c, const pfx_mixture_scratch_t 
     return cost_pack(b);
 }
 
+/* Scaling: linear weights Q40, normalised to a total of 2^40 through one
+ * reciprocal (merged weights are exact sums); costs as in pair_cost, packed
+ * (monotone, 2^-24 relative resolution: near-equal costs may tie, and a tie
+ * goes to the first pair in row-major order).  Merges through moments_core
+ * (see there); merged means are stored in Q10 before they meet the next
+ * pair.  Output log2 weights from log2 of the Q40 weights (0.70 LSB), then
+ * normalised. */
 pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_mixture_scratch_t *s)
 {
     uint32_t i, j, k, nn, step, out;
@@ -1009,6 +1016,11 @@ pfx_status_t pfx_mixture_reduce(pfx_component_t *c, uint32_t *n, uint32_t cap, p
 /* modes and the point estimate                                               */
 /* ------------------------------------------------------------------------ */
 
+/* Scaling: linear weights Q40 relative to the heaviest (mode sums <= 8 *
+ * 2^40); mode shares w_mode / w_total in Q30 through one reciprocal
+ * (2^-30 relative), compared with min_weight (Q30) and reported as
+ * mode_weight; the gate test is exact (pfx_mixture_within_gate); moments
+ * as in moments_core.  Stack: seven arrays of PFX_MAX_COMPONENTS. */
 pfx_status_t pfx_mixture_point_estimate(const pfx_component_t *c, uint32_t n, pfx_ratio_q16_t gate,
                                         pfx_frac_q30_t min_weight, pfx_estimate_t *out)
 {

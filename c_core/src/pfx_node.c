@@ -123,20 +123,65 @@ static pfx_status_t check_heard(const pfx_belief_t *belief, pfx_len_q10_t range,
     return (sigma > 0) ? PFX_OK : PFX_ERR_ARG;
 }
 
+/* Index of the heaviest component (the first among equals, as numpy argmax). */
+static uint32_t heaviest(const pfx_belief_t *b)
+{
+    uint32_t k, best = 0u;
+    for (k = 1u; k < b->count; ++k) {
+        if (b->comp[k].log2w > b->comp[best].log2w) {
+            best = k;
+        }
+    }
+    return best;
+}
+
+/* Sort key of a broadcast (order_for_update): anchors (-1) first, then agents
+ * by lambda_max of the heaviest component (monotone in its spread
+ * sqrt(lambda_max)); a censored (empty) broadcast sorts last. */
+static int32_t heard_key(const pfx_belief_t *b, uint32_t is_anchor)
+{
+    if (is_anchor) {
+        return -1;
+    }
+    if (b->count == 0u) {
+        return INT32_MAX;
+    }
+    return pfx_mixture_max_eig(&b->comp[heaviest(b)]);
+}
+
 pfx_status_t pfx_inbox_add(pfx_inbox_t *inbox, const pfx_belief_t *belief, pfx_len_q10_t range,
                            pfx_len_q10_t sigma, uint32_t is_anchor)
 {
     pfx_heard_t *h;
     pfx_status_t st;
-    if (inbox == NULL || belief == NULL) {
+    if (inbox == NULL || belief == NULL || inbox->count > PFX_MAX_NEIGHBOURS) {
         return PFX_ERR_ARG;
-    }
-    if (inbox->count >= PFX_MAX_NEIGHBOURS) {
-        return PFX_ERR_FULL;
     }
     st = check_heard(belief, range, sigma);
     if (st != PFX_OK) {
         return st;
+    }
+    if (inbox->count == PFX_MAX_NEIGHBOURS) {
+        /* Full: keep the most informative PFX_MAX_NEIGHBOURS.  The least
+         * informative is the largest key, the latest among equals; the new
+         * broadcast displaces it only when strictly more informative, so the
+         * kept set is the first PFX_MAX_NEIGHBOURS of the stable update order. */
+        int32_t key = heard_key(belief, is_anchor);
+        int32_t worst_key = heard_key(&inbox->heard[0].belief, inbox->heard[0].is_anchor);
+        uint32_t i, worst = 0u;
+        for (i = 1u; i < inbox->count; ++i) {
+            int32_t k = heard_key(&inbox->heard[i].belief, inbox->heard[i].is_anchor);
+            if (k >= worst_key) {
+                worst_key = k;
+                worst = i;
+            }
+        }
+        if (key >= worst_key) {
+            return PFX_ERR_FULL; /* not kept: every kept broadcast is at least as informative */
+        }
+        memmove(&inbox->heard[worst], &inbox->heard[worst + 1u],
+                (size_t)(inbox->count - 1u - worst) * sizeof(inbox->heard[0]));
+        inbox->count -= 1u;
     }
     h = &inbox->heard[inbox->count];
     memset(h, 0, sizeof(*h));
@@ -153,18 +198,6 @@ pfx_status_t pfx_inbox_add(pfx_inbox_t *inbox, const pfx_belief_t *belief, pfx_l
 /* update                                                                     */
 /* ------------------------------------------------------------------------ */
 
-/* Index of the heaviest component (the first among equals, as numpy argmax). */
-static uint32_t heaviest(const pfx_belief_t *b)
-{
-    uint32_t k, best = 0u;
-    for (k = 1u; k < b->count; ++k) {
-        if (b->comp[k].log2w > b->comp[best].log2w) {
-            best = k;
-        }
-    }
-    return best;
-}
-
 /* Sort key of order_for_update: anchors (-1) first, then agents by
  * lambda_max of the heaviest component (monotone in the reference's spread
  * sqrt(lambda_max)); insertion sort: ties keep arrival order. */
@@ -173,14 +206,7 @@ static void order_inbox(const pfx_inbox_t *inbox, pfx_workspace_t *ws)
     uint32_t i, j;
     for (i = 0u; i < inbox->count; ++i) {
         const pfx_heard_t *h = &inbox->heard[i];
-        int32_t key;
-        if (h->is_anchor) {
-            key = -1;
-        } else if (h->belief.count == 0u) {
-            key = INT32_MAX; /* censored: skipped anyway */
-        } else {
-            key = pfx_mixture_max_eig(&h->belief.comp[heaviest(&h->belief)]);
-        }
+        int32_t key = heard_key(&h->belief, h->is_anchor);
         ws->order_key[i] = key;
         j = i;
         while (j > 0u && ws->order_key[ws->order[j - 1u]] > key) {

@@ -31,6 +31,7 @@ class IterationRecord:
     mean: np.ndarray  # (N, 2)
     cov: np.ndarray  # (N, 2, 2)
     mode_count: np.ndarray  # (N,)
+    mode_weight: np.ndarray  # (N,) share of the belief in the reported mode
     components: np.ndarray  # (N,)
     messages_sent: int  # broadcasts by agents (anchors not counted)
     bytes_sent: int  # their size on the air
@@ -103,6 +104,7 @@ def _snapshot(engine, agent_ids, it, sent, sent_bytes, keep_beliefs) -> Iteratio
         mean=np.array([r.mean for r in reports]).reshape(-1, 2),
         cov=np.array([r.cov for r in reports]).reshape(-1, 2, 2),
         mode_count=np.array([r.mode_count for r in reports], dtype=int),
+        mode_weight=np.array([r.mode_weight for r in reports], dtype=float),
         components=np.array([r.components for r in reports], dtype=int),
         messages_sent=sent,
         bytes_sent=sent_bytes,

@@ -64,10 +64,12 @@ def run_scenario(
     keep_beliefs: bool = False,
     process_var_m2_per_s: float = 1.0,
     progress=None,
+    score: bool = True,
 ) -> RunResult:
     """Run every epoch of the scenario.
 
     progress(done, total) is called after every iteration of every epoch.
+    score=False skips the metrics (benchmarks time the estimator alone).
     """
     if iterations < 1:
         raise ValueError("iterations must be at least 1")
@@ -95,7 +97,7 @@ def run_scenario(
             eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, float(t_s), keep_beliefs, tick
         )
         result.epochs.append(record)
-        result.metrics.append(score_epoch(scenario, record, cooperative))
+        result.metrics.append(score_epoch(scenario, record, cooperative) if score else {})
         last_t = t_s
     return result
 
