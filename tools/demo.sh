@@ -3,5 +3,5 @@
 set -euo pipefail
 here=$(cd "$(dirname "$0")/.." && pwd)
 cd "$here"
-bash tools/setup.sh
+PEERFIX_NO_SYSTEM=1 bash tools/setup.sh
 exec .venv/bin/peerfix demo --out "${1:-demo-out}"

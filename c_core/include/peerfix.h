@@ -65,5 +65,6 @@ typedef enum {
 #include "pfx_mixture.h"
 #include "pfx_range.h"
 #include "pfx_node.h"
+#include "pfx_wire.h"
 
 #endif /* PEERFIX_H */

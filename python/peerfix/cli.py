@@ -21,12 +21,13 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"peerfix {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    from .commands import compare, demo, run
+    from .commands import air, compare, demo, run
     from .simulate import cli as simulate_cli
 
     simulate_cli.register(sub)
     run.register(sub)
     compare.register(sub)
+    air.register(sub)
     demo.register(sub)
     return parser
 

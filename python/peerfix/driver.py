@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .channel import Channel
 from .engine import Engine, Inbound
 from .network import Link
 
@@ -36,6 +37,9 @@ class IterationRecord:
     messages_sent: int  # broadcasts by agents (anchors not counted)
     bytes_sent: int  # their size on the air
     beliefs: list | None = None  # float64 mixtures, when asked for
+    frames_lost: int = 0  # deliveries the channel lost
+    frames_corrupted: int = 0  # deliveries with flipped bits
+    frames_rejected: int = 0  # deliveries the receiver refused (check sequence, bad field)
 
 
 @dataclass
@@ -54,10 +58,12 @@ def run_epoch(
     t_s: float = 0.0,
     keep_beliefs: bool = False,
     on_iteration=None,
+    channel: Channel | None = None,
 ) -> EpochRecord:
     """Run `iterations` rounds of the schedule; returns every agent's report per round.
 
     on_iteration(record) is called after each round (progress displays).
+    channel: packet loss and bit errors between sender and receiver (None: ideal).
     """
     if schedule not in SCHEDULES:
         raise ValueError(f"unknown schedule {schedule!r}; choose one of {', '.join(SCHEDULES)}")
@@ -65,33 +71,47 @@ def run_epoch(
     # What each node last put on the air (None: censored, or never spoke this epoch).
     air = {a: engine.broadcast(a) for a in anchor_ids}
     air.update({a: None for a in agent_ids})
+    if channel is not None and channel.ideal:
+        channel = None
     for it in range(1, iterations + 1):
         sent = 0
         sent_bytes = 0
+        before = _counters(engine, channel)
         if schedule == "broadcast":
             # Everyone speaks once from last iteration's belief, then everyone listens.
             for a in agent_ids:
                 air[a] = engine.broadcast(a)
             for a in agent_ids:
-                engine.update(a, _inbox(links[a], air))
+                engine.update(a, _inbox(links[a], air, channel))
         else:
             for a in agent_ids:
-                engine.update(a, _inbox(links[a], air))
+                engine.update(a, _inbox(links[a], air, channel))
                 air[a] = engine.broadcast(a)  # a's slot: it speaks right after updating
         for a in agent_ids:
             if air[a] is not None:
                 sent += 1
                 sent_bytes += engine.message_bytes(air[a])
-        record.iterations.append(_snapshot(engine, agent_ids, it, sent, sent_bytes, keep_beliefs))
+        snap = _snapshot(engine, agent_ids, it, sent, sent_bytes, keep_beliefs)
+        after = _counters(engine, channel)
+        snap.frames_lost, snap.frames_corrupted, snap.frames_rejected = (a - b for a, b in zip(after, before))
+        record.iterations.append(snap)
         if on_iteration is not None:
             on_iteration(record.iterations[-1])
     return record
 
 
-def _inbox(links: list[Link], air: dict) -> list[Inbound]:
+def _counters(engine, channel) -> tuple[int, int, int]:
+    lost = channel.counts.lost if channel is not None else 0
+    corrupted = channel.counts.corrupted if channel is not None else 0
+    return lost, corrupted, getattr(engine, "frames_rejected", 0)
+
+
+def _inbox(links: list[Link], air: dict, channel: Channel | None = None) -> list[Inbound]:
     inbox = []
     for link in links:
         msg = air[link.other]
+        if msg is not None and channel is not None:
+            msg = channel.deliver(msg)
         if msg is not None:
             inbox.append(Inbound(link.other, msg, link.range_m, link.sigma_m, link.other_is_anchor))
     return inbox

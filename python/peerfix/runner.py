@@ -23,13 +23,14 @@ from .scenario.model import Scenario
 ENGINES = ("float", "fixed")
 
 
-def make_engine(name: str, params: EstimatorParams, blocked: BlockedModel):
+def make_engine(name: str, params: EstimatorParams, blocked: BlockedModel, air: bool = True):
+    """air: the fixed engine's broadcasts cross as frame bytes (ignored by the float twin)."""
     if name == "float":
         return FloatEngine(params, blocked)
     if name == "fixed":
         from .core.engine_fixed import FixedEngine  # needs the compiled core
 
-        return FixedEngine(params, blocked)
+        return FixedEngine(params, blocked, air=air)
     raise ValueError(f"unknown engine {name!r}; choose one of {', '.join(ENGINES)}")
 
 
@@ -65,16 +66,20 @@ def run_scenario(
     process_var_m2_per_s: float = 1.0,
     progress=None,
     score: bool = True,
+    air: bool = True,
+    channel=None,
 ) -> RunResult:
     """Run every epoch of the scenario.
 
     progress(done, total) is called after every iteration of every epoch.
     score=False skips the metrics (benchmarks time the estimator alone).
+    air: the fixed engine sends frame bytes (False: in-memory structs).
+    channel: a peerfix.channel.Channel for packet loss and bit errors.
     """
     if iterations < 1:
         raise ValueError("iterations must be at least 1")
     params = params or EstimatorParams()
-    eng = make_engine(engine, params, blocked_model(scenario, params))
+    eng = make_engine(engine, params, blocked_model(scenario, params), air)
     eng.start(scenario.site.bounds_m, scenario.anchor_positions(), scenario.agent_ids)
     result = RunResult(scenario, engine, params, schedule, cooperative)
     epochs = scenario.ranges.epochs()
@@ -94,7 +99,7 @@ def run_scenario(
                 eng.predict(a, float(t_s - last_t), process_var_m2_per_s)
         links = epoch_links(scenario, float(t_s), cooperative=cooperative)
         record = run_epoch(
-            eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, float(t_s), keep_beliefs, tick
+            eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, float(t_s), keep_beliefs, tick, channel
         )
         result.epochs.append(record)
         result.metrics.append(score_epoch(scenario, record, cooperative) if score else {})
@@ -123,6 +128,10 @@ def score_epoch(scenario: Scenario, record: EpochRecord, cooperative: bool = Tru
         m["iteration"] = it.iteration
         m["messages_sent"] = it.messages_sent
         m["bytes_sent"] = it.bytes_sent
+        m["bytes_per_agent"] = it.bytes_sent / max(1, len(scenario.agent_ids))
+        m["frames_lost"] = it.frames_lost
+        m["frames_corrupted"] = it.frames_corrupted
+        m["frames_rejected"] = it.frames_rejected
         per_iter.append(m)
     return {
         "t_s": record.t_s,

@@ -26,6 +26,22 @@ def add_estimator_options(p: argparse.ArgumentParser) -> None:
     )
 
 
+def add_air_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--no-air", action="store_true", help="fixed engine: hand beliefs over as structs, not frame bytes")
+    p.add_argument("--packet-loss", type=float, default=0.0, metavar="P", help="probability that a receiver misses a broadcast")
+    p.add_argument("--bit-error-rate", type=float, default=0.0, metavar="B", help="probability that a bit of a frame flips (fixed engine on the air)")
+    p.add_argument("--channel-seed", type=int, default=0, metavar="N", help="seed of the loss and bit-error draws")
+
+
+def channel_from(args):
+    from ..channel import Channel
+
+    try:
+        return Channel(args.packet_loss, args.bit_error_rate, args.channel_seed)
+    except ValueError as err:
+        raise SystemExit(f"peerfix: error: {err}")
+
+
 def estimator_params(args) -> EstimatorParams:
     params = EstimatorParams()
     if args.components is not None:

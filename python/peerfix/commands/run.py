@@ -6,7 +6,7 @@ from pathlib import Path
 
 from ..runner import ENGINES, run_scenario, write_outputs
 from ..scenario import read_scenario
-from .common import add_estimator_options, estimator_params, print_json
+from .common import add_air_options, add_estimator_options, channel_from, estimator_params, print_json
 
 
 def register(sub) -> None:
@@ -16,11 +16,15 @@ def register(sub) -> None:
     p.add_argument("--out", type=Path, required=True, metavar="OUT", help="folder for estimates.csv and metrics.json")
     p.add_argument("--json", action="store_true", help="print the final-iteration summary as JSON")
     add_estimator_options(p)
+    add_air_options(p)
     p.set_defaults(handler=handle)
 
 
 def handle(args) -> int:
     params = estimator_params(args)
+    channel = channel_from(args)
+    if channel.bit_error_rate and (args.engine != "fixed" or args.no_air):
+        raise SystemExit("peerfix: error: --bit-error-rate needs frames on the air (--engine fixed without --no-air)")
     scenario = read_scenario(args.scenario)  # strict: raises InputError before anything is written
     result = run_scenario(
         scenario,
@@ -29,6 +33,8 @@ def handle(args) -> int:
         iterations=args.iterations,
         schedule=args.schedule,
         cooperative=not args.no_coop,
+        air=not args.no_air,
+        channel=channel,
     )
     doc = write_outputs(result, args.out)
     final = doc.get("final", {})

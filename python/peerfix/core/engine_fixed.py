@@ -1,9 +1,13 @@
 """The fixed-point C core as an engine for the driver.
 
-Every agent is a `pfx_node_t` owned by this object; broadcasts are
-`pfx_belief_t` structs handed from node to node exactly as the firmware would
-hand them.  SI floats become Q formats here, at the boundary, and nowhere
-else; C status codes become CoreError.
+Every agent is a `pfx_node_t` owned by this object.  On the air (the
+default) every broadcast crosses from node to node as the bytes of a belief
+frame (pfx_wire_encode / pfx_wire_decode, docs/wire-format.md), and a node
+keeps exactly the quantised belief its neighbours decode; a frame the decoder
+refuses (check sequence, bad field) is counted and not used.  With air=False
+broadcasts are handed over as `pfx_belief_t` structs (the core against the
+float twin, without the air's quantisation).  SI floats become Q formats
+here, at the boundary, and nowhere else; C status codes become CoreError.
 """
 
 from __future__ import annotations
@@ -122,7 +126,13 @@ def mixture_to_belief(m: Mixture | None):
 class FixedEngine:
     name = "fixed"
 
-    def __init__(self, params: EstimatorParams, blocked: BlockedModel = BlockedModel(), max_range_m: float = DEFAULT_MAX_RANGE_M):
+    def __init__(
+        self,
+        params: EstimatorParams,
+        blocked: BlockedModel = BlockedModel(),
+        max_range_m: float = DEFAULT_MAX_RANGE_M,
+        air: bool = True,
+    ):
         self.ffi, self.lib = _lib()
         if params.max_neighbours != self.lib.PFX_MAX_NEIGHBOURS:
             raise ValueError(
@@ -137,11 +147,23 @@ class FixedEngine:
         self.workspace = self.ffi.new("pfx_workspace_t *")
         self.component_bytes = self.ffi.sizeof("pfx_component_t")
         self.not_kept = 0  # broadcasts a full inbox did not keep
+        self.air = air
+        self.frames_rejected = 0  # frames the decoder refused
+        self.rejected_by_status: dict[str, int] = {}
+        self._frame = self.ffi.new("uint8_t[]", self.lib.PFX_WIRE_MAX_BYTES)
+        self._frame_len = self.ffi.new("size_t *")
+        self._decoded = self.ffi.new("pfx_belief_t *")
+        self._meta = self.ffi.new("pfx_wire_meta_t *")
+        self._ids: dict[str, int] = {}
+        self._sequence: dict[str, int] = {}
         self._link_q: dict[tuple[float, float], tuple[int, int]] = {}
 
     def start(self, bounds_m, anchors, agent_ids):
         ffi, lib = self.ffi, self.lib
         bounds = ffi.new("pfx_len_q10_t[4]", [len_q(b) for b in bounds_m])
+        # Sender ids on the air: anchors then agents, in scenario order (u16).
+        self._ids = {n: i for i, n in enumerate([*anchors, *agent_ids])}
+        self._sequence = {n: 0 for n in self._ids}
         self.nodes = {}
         for a in agent_ids:
             node = ffi.new("pfx_node_t *")
@@ -151,18 +173,40 @@ class FixedEngine:
         for a, xy in anchors.items():
             msg = ffi.new("pfx_belief_t *")
             check(lib.pfx_belief_point(msg, len_q(xy[0]), len_q(xy[1])), f"pfx_belief_point({a})")
-            self.anchor_msgs[a] = msg
+            self.anchor_msgs[a] = self._encode(a, msg, lib.PFX_WIRE_FLAG_ANCHOR) if self.air else msg
+
+    def _encode(self, sender: str, belief, flags: int = 0) -> bytes:
+        seq = self._sequence[sender]
+        self._sequence[sender] = (seq + 1) & 0xFF
+        meta = self.ffi.new("pfx_wire_meta_t *", {"sender": self._ids[sender], "sequence": seq, "flags": flags})
+        status = self.lib.pfx_wire_encode(belief, meta, self._frame, self.lib.PFX_WIRE_MAX_BYTES, self._frame_len)
+        check(status, f"pfx_wire_encode({sender})")
+        return bytes(self.ffi.buffer(self._frame, self._frame_len[0]))
 
     def broadcast(self, node_id):
         if node_id in self.anchor_msgs:
             return self.anchor_msgs[node_id]
         out = self.ffi.new("pfx_belief_t *")
         check(self.lib.pfx_node_broadcast(self.nodes[node_id], out), f"pfx_node_broadcast({node_id})")
-        return out if out.count else None
+        if not out.count:
+            return None
+        return self._encode(node_id, out) if self.air else out
 
     def message_bytes(self, message) -> int:
-        # Size of the in-memory struct's used part; the wire format is smaller.
+        if self.air:
+            return len(message)
+        # Off the air: the used part of the in-memory struct.
         return 4 + self.component_bytes * int(message.count)
+
+    def _receive(self, frame: bytes):
+        """The belief in a frame, or None when the decoder refuses it (counted)."""
+        status = self.lib.pfx_wire_decode(frame, len(frame), self._decoded, self._meta)
+        if status != Status.OK:
+            self.frames_rejected += 1
+            name = Status(status).name
+            self.rejected_by_status[name] = self.rejected_by_status.get(name, 0) + 1
+            return None
+        return self._decoded
 
     def update(self, agent_id, inbox: list[Inbound]):
         lib = self.lib
@@ -173,12 +217,19 @@ class FixedEngine:
             q = cache.get(key)
             if q is None:  # links repeat every iteration: convert each once
                 q = cache[key] = (len_q(m.range_m), len_q(m.sigma_m))
-            status = lib.pfx_inbox_add(self.inbox, m.message, q[0], q[1], 1 if m.is_anchor else 0)
+            belief = self._receive(m.message) if self.air else m.message
+            if belief is None:
+                continue
+            status = lib.pfx_inbox_add(self.inbox, belief, q[0], q[1], 1 if m.is_anchor else 0)
             if status == Status.ERR_FULL:
                 self.not_kept += 1  # the inbox keeps the most informative PFX_MAX_NEIGHBOURS
                 continue
             check(status, f"pfx_inbox_add({agent_id} <- {m.sender})")
-        check(lib.pfx_node_update(self.nodes[agent_id], self.inbox, self.workspace), f"pfx_node_update({agent_id})")
+        node = self.nodes[agent_id]
+        check(lib.pfx_node_update(node, self.inbox, self.workspace), f"pfx_node_update({agent_id})")
+        if self.air and node.belief.count:
+            # Keep what the neighbours will decode: the air hides no precision.
+            check(lib.pfx_wire_quantise(self.ffi.addressof(node, "belief")), f"pfx_wire_quantise({agent_id})")
 
     def report(self, agent_id) -> NodeReport:
         est = self.ffi.new("pfx_estimate_t *")

@@ -153,10 +153,13 @@ def compare_scenario(
     iterations: int = 4,
     schedule: str = "slot",
     cooperative: bool = True,
+    air: bool = False,
 ) -> Comparison:
+    """Both engines on one scenario.  air=False (default) compares the core with
+    the twin alone; air=True adds the air format's quantisation to the core."""
     params = params or EstimatorParams()
     runs = [
-        run_scenario(scenario, engine, params, iterations, schedule, cooperative, keep_beliefs=True)
+        run_scenario(scenario, engine, params, iterations, schedule, cooperative, keep_beliefs=True, air=air)
         for engine in ("float", "fixed")
     ]
     return compare_runs(*runs)
