@@ -27,6 +27,8 @@ command -v clang >/dev/null 2>&1 || { echo "fuzz_wire: clang is missing (tools/i
 python=${PYTHON:-.venv/bin/python}
 work=build/fuzz_wire
 mkdir -p "$work/corpus"
+# The fuzzer brings its own sanitizer runtimes: drop any preloaded one (tools/sanitize.sh runs the tests with gcc's).
+unset LD_PRELOAD
 clang -std=c99 -g -O1 -fsanitize=fuzzer,address,undefined -fno-sanitize-recover=all \
     -Ic_core/include tests/core/c/fuzz_wire.c c_core/src/pfx_fixed.c c_core/src/pfx_wire.c \
     -o "$work/fuzz_wire"

@@ -190,19 +190,119 @@ uint64_t pfx_mixture_rsqrt_q30(uint64_t m);
 
 /* ---- inline arithmetic of the hot loops (same rules as pfx_fixed) ---- */
 
-/* round(x / 2^s), ties toward +infinity, any s: pfx_fixed_shr64_round, inlined. */
+/* Leading zeros: pfx_fixed_clz32 / pfx_fixed_clz64 inlined (the same
+ * portable binary search, or the compiler's builtin with
+ * PFX_USE_BUILTIN_CLZ, as pfx_fixed.c chooses). */
+static inline unsigned pfx_mixture_clz32(uint32_t x)
+{
+#if defined(PFX_USE_BUILTIN_CLZ)
+    return (x == 0u) ? 32u : (unsigned)__builtin_clz((unsigned int)x);
+#else
+    unsigned n = 0u;
+    if (x == 0u) {
+        return 32u;
+    }
+    if ((x & UINT32_C(0xFFFF0000)) == 0u) {
+        n += 16u;
+        x <<= 16;
+    }
+    if ((x & UINT32_C(0xFF000000)) == 0u) {
+        n += 8u;
+        x <<= 8;
+    }
+    if ((x & UINT32_C(0xF0000000)) == 0u) {
+        n += 4u;
+        x <<= 4;
+    }
+    if ((x & UINT32_C(0xC0000000)) == 0u) {
+        n += 2u;
+        x <<= 2;
+    }
+    if ((x & UINT32_C(0x80000000)) == 0u) {
+        n += 1u;
+    }
+    return n;
+#endif
+}
+
+static inline unsigned pfx_mixture_clz64(uint64_t x)
+{
+    uint32_t hi = (uint32_t)(x >> 32);
+    return (hi != 0u) ? pfx_mixture_clz32(hi) : 32u + pfx_mixture_clz32((uint32_t)x);
+}
+
+/* floor(x / 2^s), any s: pfx_fixed_shr64_floor, inlined.  With m all ones
+ * for x < 0, x ^ m is x or -x - 1 (>= 0, as unsigned: no conversion of a
+ * negative value), so one logical shift serves both signs:
+ * floor(x / 2^s) = -floor((-x - 1) / 2^s) - 1 for x < 0. */
+static inline int64_t pfx_mixture_shr_floor(int64_t x, unsigned s)
+{
+    uint64_t m = (x < 0) ? UINT64_MAX : 0u;
+    uint64_t t;
+    if (s > 63u) {
+        return (x < 0) ? -1 : 0;
+    }
+    t = ((uint64_t)x ^ m) >> s; /* < 2^63 */
+    return (x < 0) ? -(int64_t)t - 1 : (int64_t)t;
+}
+
+/* round(x / 2^s), ties toward +infinity, any s: pfx_fixed_shr64_round,
+ * inlined; the form for a shift known at compile time (branch-free there).
+ * u = x + 2^63 (the sign bit flipped: exact, unsigned), v = u + 2^(s-1) the
+ * rounding bias; floor(v / 2^s) - 2^(63-s) = round(x / 2^s) as 2^(63-s) is
+ * an integer (both terms fit int64 for 1 <= s <= 63).  v wraps exactly when
+ * x >= 2^63 - 2^(s-1), where x / 2^s rounds to 2^(63-s). */
 static inline int64_t pfx_mixture_shr_round(int64_t x, unsigned s)
 {
-    uint64_t ux = (uint64_t)x;
-    int64_t q;
+    uint64_t u, v;
     if (s == 0u) {
         return x;
     }
     if (s > 63u) {
         return 0;
     }
-    q = (x >= 0) ? (int64_t)(ux >> s) : -(int64_t)((uint64_t)(-(x + 1)) >> s) - 1; /* floor */
-    return q + (int64_t)((ux >> (s - 1u)) & 1u);
+    u = (uint64_t)x ^ (UINT64_C(1) << 63);
+    v = u + (UINT64_C(1) << (s - 1u));
+    if (v < u) {
+        return (int64_t)(UINT64_C(1) << (63u - s));
+    }
+    return (int64_t)(v >> s) - (int64_t)(UINT64_C(1) << (63u - s));
+}
+
+/* The same value for a shift known only at run time: one variable shift,
+ * t = floor(x / 2^(s-1)); floor(x / 2^s) = floor(t / 2) and the half-LSB
+ * bit s-1 of x is t's lowest bit, so the result is floor(t / 2) + (t & 1)
+ * (no overflow: floor(t / 2) + 1 <= 2^62). */
+static inline int64_t pfx_mixture_shr_round_var(int64_t x, unsigned s)
+{
+    int64_t t;
+    if (s == 0u) {
+        return x;
+    }
+    if (s > 63u) {
+        return 0;
+    }
+    t = pfx_mixture_shr_floor(x, s - 1u);
+    return pfx_mixture_shr_floor(t, 1u) + (int64_t)((uint64_t)t & 1u);
+}
+
+/* a + b saturated to int64: pfx_fixed_add64_sat, inlined (the limits are
+ * tested before the add, so the add itself never overflows). */
+static inline int64_t pfx_mixture_add_sat(int64_t a, int64_t b)
+{
+    if (b > 0 && a > INT64_MAX - b) {
+        return INT64_MAX;
+    }
+    if (b < 0 && a < INT64_MIN - b) {
+        return INT64_MIN;
+    }
+    return a + b;
+}
+
+/* x clamped to [lo, hi]: pfx_fixed_clamp64, inlined. */
+static inline int64_t pfx_mixture_clamp(int64_t x, int64_t lo, int64_t hi)
+{
+    return (x < lo) ? lo : ((x > hi) ? hi : x);
 }
 
 /* round(a * b / 2^s) for int32 operands: |a b| <= 2^62, one rounding. */
@@ -218,6 +318,26 @@ static inline int64_t pfx_mixture_mul(int64_t a, int64_t b, unsigned s)
         return pfx_mixture_shr_round(a * b, s);
     }
     return pfx_mixture_mul64(a, b, s);
+}
+
+/* pfx_mixture_mul for a shift known only at run time. */
+static inline int64_t pfx_mixture_mul_var(int64_t a, int64_t b, unsigned s)
+{
+    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
+        return pfx_mixture_shr_round_var(a * b, s);
+    }
+    return pfx_mixture_mul64(a, b, s);
+}
+
+/* pfx_mixture_mul_recip with its common case inlined, for hot loops: num
+ * in int32 and no left shift, one 32x32 multiply and one rounding shift;
+ * anything else goes to the out-of-line function (the same value). */
+static inline int64_t pfx_mixture_mul_recip_inline(int64_t num, const pfx_recip64_t *r, unsigned frac)
+{
+    if (r->shift >= frac && num >= INT32_MIN && num <= INT32_MAX) {
+        return pfx_mixture_shr_round_var(num * r->mant, r->shift - frac);
+    }
+    return pfx_mixture_mul_recip(num, r, frac);
 }
 
 static inline int32_t pfx_mixture_sat32(int64_t x)

@@ -34,6 +34,8 @@ extern "C" {
 /* PFX_CDEF_BEGIN */
 
 #define PFX_MAX_RINGS 16          /* rings of one message: 2 (robust) * PFX_MAX_COMPONENTS */
+#define PFX_IEKF_STEP_TOL_Q20 128 /* 2^-13 m: a compact update of a neighbour step stops relinearising
+                                   once an iteration moves it by at most this (reference IEKF_STEP_TOL_M) */
 
 /* Settings: the fixed-point image of peerfix.reference.params.EstimatorParams.
  * Bounds enforced by pfx_params_check are given in brackets. */
@@ -56,6 +58,8 @@ typedef struct {
     pfx_frac_q30_t blocked_weight;      /* robust likelihood share; 0 = off [0, 1) */
     pfx_len_q10_t blocked_bias;         /* mean bias of a blocked range [0, max_range] */
     pfx_len_q10_t max_range;            /* a range above this is PFX_ERR_RANGE [1 LSB, 16384 m] */
+    pfx_ratio_q16_t product_gate;       /* 64.0: a compact product whose first squared normalised innovation
+                                           exceeds it keeps the one-step update [0 = off, 32768) */
 } pfx_params_t;
 
 /* One ring message: N(r; ||x - c||, var), weight 2^log2w. */
@@ -71,7 +75,7 @@ typedef struct {
     pfx_ring_t ring[PFX_MAX_RINGS];
     uint32_t ring_count;
     pfx_component_t arcs[PFX_MAX_BROAD_ARCS];
-    uint32_t ring_sd[PFX_MAX_RINGS];    /* sqrt(var) of each ring, Q20 */
+    int64_t bend_limit[PFX_MAX_RINGS];  /* the sagitta test's right side for each ring, Q30 (pfx_range.c) */
 } pfx_range_scratch_t;
 
 /* Direction k (taken mod 256) of the arc table: unit vector in Q30. */
@@ -100,8 +104,9 @@ pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx
 /* 1 when component c meets ring g as a broad component (reference is_broad). */
 int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_params_t *p);
 
-/* Iterated extended Kalman update of c by ring g; out->log2w = c->log2w +
- * g->log2w + log2 N(r; predicted, s).  PFX_ERR_DEGENERATE: drop it. */
+/* Iterated extended Kalman update of c by ring g (no gate: every
+ * iteration); out->log2w = c->log2w + g->log2w + log2 N(r; predicted, s).
+ * PFX_ERR_DEGENERATE: drop it. */
 pfx_status_t pfx_range_compact(const pfx_component_t *c, const pfx_ring_t *g, uint32_t iterations,
                                pfx_component_t *out);
 
@@ -114,7 +119,11 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
 
 /* Every product of work[0..n) with rings[0..nr) in the reference order
  * (component major, ring minor, broad expansions in place), streamed into
- * cand through the keep-heaviest buffer of p->candidate_cap. */
+ * cand through the keep-heaviest buffer of p->candidate_cap; compact
+ * products gated by p->product_gate (reference compact_update).  Products
+ * that pfx_mixture_prune with p->prune_log2_ratio would drop anyway (below
+ * the floor of the heaviest streamed before them) are left out: after that
+ * prune the buffer is the same as with every product streamed. */
 pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const pfx_ring_t *rings, uint32_t nr,
                                 const pfx_params_t *p, pfx_component_t *cand, uint32_t *n_cand,
                                 pfx_range_scratch_t *s);

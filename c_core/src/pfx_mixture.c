@@ -158,12 +158,12 @@ static int fits32(int64_t v)
  */
 static int64_t mul64x32(int64_t a, int32_t b, unsigned s)
 {
-    int64_t ah = pfx_fixed_shr64_floor(a, 32u);
+    int64_t ah = pfx_mixture_shr_floor(a, 32u);
     int64_t lo = (int64_t)((uint64_t)a & UINT64_C(0xFFFFFFFF)) * b; /* |.| < 2^63 */
-    int64_t h = ah * b + pfx_fixed_shr64_floor(lo, 32u);
+    int64_t h = ah * b + pfx_mixture_shr_floor(lo, 32u);
     uint64_t ll = (uint64_t)lo & UINT64_C(0xFFFFFFFF);
     if (s > 32u) {
-        return pfx_mixture_shr_round(h, s - 32u);
+        return pfx_mixture_shr_round_var(h, s - 32u);
     }
     if (s == 0u) {
         return fits32(h) ? h * (INT64_C(1) << 32) + (int64_t)ll : (h < 0 ? INT64_MIN : INT64_MAX);
@@ -187,7 +187,7 @@ int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
     int negative;
     if (fits32(b)) {
         if (fits32(a)) {
-            return pfx_mixture_shr_round(a * b, s); /* |a b| <= 2^62 */
+            return pfx_mixture_shr_round_var(a * b, s); /* |a b| <= 2^62 */
         }
         return mul64x32(a, (int32_t)b, s);
     }
@@ -242,7 +242,7 @@ pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r)
         return PFX_ERR_DOMAIN;
     }
     if (x > UINT32_MAX) {
-        k = 32u - pfx_fixed_clz64(x); /* 1..32: x >> k < 2^32 */
+        k = 32u - pfx_mixture_clz64(x); /* 1..32: x >> k < 2^32 */
         xn = (x >> k) + ((x >> (k - 1u)) & 1u);
         if (xn > UINT32_MAX) {
             xn >>= 1;
@@ -260,9 +260,9 @@ pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r)
 int64_t pfx_mixture_mul_recip(int64_t num, const pfx_recip64_t *r, unsigned frac)
 {
     if (r->shift >= frac) {
-        return pfx_mixture_mul(num, r->mant, r->shift - frac);
+        return pfx_mixture_mul_var(num, r->mant, r->shift - frac);
     }
-    return pfx_fixed_shl64_sat(pfx_mixture_mul(num, r->mant, 0u), frac - r->shift);
+    return pfx_fixed_shl64_sat(pfx_mixture_mul_var(num, r->mant, 0u), frac - r->shift);
 }
 
 /* 2^x in Q40 for x <= 0 (Q16): mant (Q30, [1, 2)) * 2^(floor(x) + 10).
@@ -283,7 +283,7 @@ int64_t pfx_mixture_lin_q40(int64_t x)
     if (e + 10 >= 0) {
         return (int64_t)mant * (INT64_C(1) << (unsigned)(e + 10)); /* <= 2^31 * 2^9 */
     }
-    return pfx_mixture_shr_round((int64_t)mant, (unsigned)(-(e + 10)));
+    return pfx_mixture_shr_round_var((int64_t)mant, (unsigned)(-(e + 10)));
 }
 
 /* Saturate to the Q20 range; a pxy with pxy^2 > pxx pyy - 1 (only ever off
@@ -297,7 +297,7 @@ pfx_status_t pfx_mixture_store_cov(int64_t pxx, int64_t pxy, int64_t pyy, pfx_co
     }
     a = (pxx > INT32_MAX) ? INT32_MAX : pxx;
     c = (pyy > INT32_MAX) ? INT32_MAX : pyy;
-    b = pfx_fixed_clamp64(pxy, -(int64_t)INT32_MAX, INT32_MAX);
+    b = pfx_mixture_clamp(pxy, -(int64_t)INT32_MAX, INT32_MAX);
     if (b * b > a * c - 1) {
         int64_t m = (int64_t)pfx_fixed_isqrt_u64((uint64_t)(a * c - 1));
         b = (b < 0) ? -m : m;
@@ -365,7 +365,7 @@ uint64_t pfx_mixture_isqrt_round(uint64_t x)
     if (x == 0u) {
         return 0u;
     }
-    z = pfx_fixed_clz64(x) & ~1u;
+    z = pfx_mixture_clz64(x) & ~1u;
     r = ((((x << z) >> 32) * pfx_mixture_rsqrt_q30(x << z)) >> 30) >> (z / 2u);
     if (r > UINT32_MAX) {
         r = UINT32_MAX;
@@ -393,6 +393,12 @@ pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c)
     a = c->pxx;
     d = c->pyy;
     b = c->pxy;
+    if (a - d > -(INT64_C(1) << 31) && a - d < (INT64_C(1) << 31) && b > -(INT64_C(1) << 30) &&
+        b < (INT64_C(1) << 30)) {
+        /* the usual case, in 64 bits: (a-d)^2 < 2^62, 4 b^2 < 2^62 (the same t) */
+        uint64_t t64 = (uint64_t)((a - d) * (a - d)) + 4u * (uint64_t)(b * b);
+        return pfx_mixture_sat32(pfx_mixture_shr_round(a + d + (int64_t)pfx_mixture_isqrt_round(t64), 1u));
+    }
     t = u128_add(u128_mul(mag64(a - d), mag64(a - d)), u128_shl(u128_mul(mag64(b), mag64(b)), 2u));
     if (t.hi == 0u) {
         root = (int64_t)pfx_mixture_isqrt_round(t.lo); /* <= 2^32 */
@@ -856,7 +862,7 @@ static uint32_t cost_pack(int64_t v)
     if (v <= 0) {
         return 0u;
     }
-    e = 64u - pfx_fixed_clz64((uint64_t)v); /* 1..63 */
+    e = 64u - pfx_mixture_clz64((uint64_t)v); /* 1..63 */
     top = ((uint64_t)v << (64u - e)) >> 39;   /* 25 bits, leading one at bit 24 */
     return ((uint32_t)e << 24) | (uint32_t)(top & UINT64_C(0xFFFFFF));
 }

@@ -36,6 +36,7 @@ void pfx_params_default(pfx_params_t *p)
     p->blocked_weight = 0;
     p->blocked_bias = 1024;                  /* 1.0 m */
     p->max_range = 1024000;                  /* 1000 m */
+    p->product_gate = 64 << 16;              /* squared normalised innovation (8 sigma) */
 }
 
 pfx_status_t pfx_params_check(const pfx_params_t *p)
@@ -56,7 +57,8 @@ pfx_status_t pfx_params_check(const pfx_params_t *p)
         p->prune_log2_ratio < -(INT32_C(24) << 16) || p->prune_log2_ratio > 0 || p->broadcast_inflation <= 0 ||
         p->censor_spread < 0 || p->censor_spread > (INT32_C(1) << 20) || p->mode_gate < 0 ||
         p->mode_min_weight < 0 || p->mode_min_weight > PFX_FIXED_FRAC_Q30_ONE || p->blocked_weight < 0 ||
-        p->blocked_weight >= PFX_FIXED_FRAC_Q30_ONE || p->blocked_bias < 0 || p->blocked_bias > p->max_range) {
+        p->blocked_weight >= PFX_FIXED_FRAC_Q30_ONE || p->blocked_bias < 0 || p->blocked_bias > p->max_range ||
+        p->product_gate < 0) {
         return PFX_ERR_ARG;
     }
     return PFX_OK;

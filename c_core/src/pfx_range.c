@@ -94,7 +94,7 @@ static uint64_t mag64(int64_t v)
  * Unit vector of (dx, dy) in Q30 and its length in the unit of d.
  * Scaling: d is brought to 30 significant bits (exact left shift, or one
  * rounding right shift): n2 = dx'^2 + dy'^2 in [2^58, 2^61].  n2 is shifted
- * by an even z to m in [2^62, 2^64), M = m / 2^64 in [1/4, 1), and
+ * by an even z (2 or 4) to m in [2^62, 2^64), M = m / 2^64 in [1/4, 1), and
  * y = 1/sqrt(M) (Q30, about 2^-29 relative) from pfx_mixture_rsqrt_q30.  Then
  * u = d' y 2^(z/2 - 32) and rho' = d'.u (no square root, no divide).
  * rho is rho' shifted back (rounded; saturated for |d| near 2^63).
@@ -103,7 +103,7 @@ static uint64_t mag64(int64_t v)
 static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_t *rho)
 {
     uint64_t m = mag64(dx) > mag64(dy) ? mag64(dx) : mag64(dy);
-    unsigned b, z, sh;
+    unsigned b, z;
     int64_t nx, ny, r;
     uint64_t n2, y;
     if (m == 0u) {
@@ -112,22 +112,27 @@ static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_
         *rho = 0;
         return;
     }
-    b = 64u - pfx_fixed_clz64(m);
+    b = 64u - pfx_mixture_clz64(m);
     if (b > 30u) {
-        nx = pfx_mixture_shr_round(dx, b - 30u);
-        ny = pfx_mixture_shr_round(dy, b - 30u);
+        nx = pfx_mixture_shr_round_var(dx, b - 30u);
+        ny = pfx_mixture_shr_round_var(dy, b - 30u);
     } else {
         nx = dx * (INT64_C(1) << (30u - b)); /* |nx| < 2^30 */
         ny = dy * (INT64_C(1) << (30u - b));
     }
     n2 = (uint64_t)(nx * nx + ny * ny); /* [2^58, 2^61] */
-    z = pfx_fixed_clz64(n2) & ~1u;      /* 2 or 4 (0 impossible: n2 < 2^62) */
+    z = (n2 >= (UINT64_C(1) << 60)) ? 2u : 4u; /* the even shift to [2^62, 2^64): clz64(n2) & ~1 */
     y = pfx_mixture_rsqrt_q30(n2 << z); /* [2^62, 2^64): no bit is lost */
-    sh = 32u - z / 2u; /* 1/sqrt(n2) = y 2^(z/2 - 32) / 2^30 */
-    *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, sh)); /* |nx y| <= 2^61 */
-    *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, sh));
+    /* 1/sqrt(n2) = y 2^(z/2 - 32) / 2^30: u = d' y / 2^31 (z = 2) or / 2^30 (z = 4); |nx y| <= 2^61 */
+    if (z == 2u) {
+        *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 31u));
+        *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, 31u));
+    } else {
+        *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 30u));
+        *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, 30u));
+    }
     r = pfx_mixture_shr_round(nx * *ux + ny * *uy, 30u); /* rho' in the unit of nx */
-    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : pfx_mixture_shr_round(r, 30u - b);
+    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : pfx_mixture_shr_round_var(r, 30u - b);
 }
 
 /* ------------------------------------------------------------------------ */
@@ -321,33 +326,52 @@ pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx
 /* ------------------------------------------------------------------------ */
 
 /*
- * near centre: rho^2 <= 4 lambda_max (Q20, exact squares);
+ * The first linearisation of a compact pair: h = (mean - centre) / rho and
+ * rho, from unit_vector on the Q20 offset D = (mean - centre) * 2^10 (h in
+ * Q30, rho in Q20).  The compact/broad test needs h too, so a neighbour step
+ * computes it once per pair.  unit_vector normalises its input to 30
+ * significant bits exactly (a left shift, or for offsets of 2^30 LSB a
+ * rounding that the scaled offset repeats bit for bit), so h is the same
+ * from the Q10 or the Q20 offset.
+ */
+typedef struct {
+    int32_t hx, hy;
+    int64_t rho;
+} lin_t;
+
+static void first_lin(const pfx_component_t *c, const pfx_ring_t *g, lin_t *l)
+{
+    unit_vector(pfx_mixture_offset(g->cx, c->x) * 1024, pfx_mixture_offset(g->cy, c->y) * 1024, &l->hx, &l->hy,
+                &l->rho);
+}
+
+/* near centre: rho^2 <= 4 lambda_max (Q20, exact squares). */
+static int near_centre(const pfx_component_t *c, int32_t lam, const pfx_ring_t *g)
+{
+    int64_t dx = pfx_mixture_offset(g->cx, c->x);
+    int64_t dy = pfx_mixture_offset(g->cy, c->y);
+    return dx * dx + dy * dy <= 4 * (int64_t)lam; /* <= 2^61 */
+}
+
+/*
  * sagitta test 2 sigma_t^2 / r > ratio sqrt(var)  <=>
  *   2 sigma_t^2 > ratio * sqrt(var) * r, with sigma_t^2 = t^T P t in Q30
- *   (t the unit tangent, Q30), sqrt(var) in Q20 (exactly rounded), the
- *   right side ratio (Q16) * sqrt(var) (Q20) <= 2^57, times r >> 16 -> Q30.
+ *   (t = (-uy, ux) the unit tangent, Q30).  The right side depends on the
+ *   ring only (bend_limit, once per ring): sqrt(var) = sd in Q20 (exactly
+ *   rounded), ratio (Q16) * sd (Q20) <= 2^57, times r >> 16 -> Q30.
  */
-/* lam = lambda_max(c) and sd = sqrt(g->var) (Q20) are given: the update
- * computes them once per component and once per ring. */
-static int is_broad_core(const pfx_component_t *c, int32_t lam, const pfx_ring_t *g, uint32_t sd,
-                         const pfx_params_t *p)
+static int64_t bend_limit(const pfx_ring_t *g, uint32_t sd, const pfx_params_t *p)
 {
-    int64_t dx, dy, rho2, rho, ptx, pty, st2, rhs;
-    int32_t ux, uy, tx, ty;
-    dx = pfx_mixture_offset(g->cx, c->x);
-    dy = pfx_mixture_offset(g->cy, c->y);
-    rho2 = dx * dx + dy * dy; /* <= 2^61 */
-    if (rho2 <= 4 * (int64_t)lam) {
-        return 1;
-    }
-    unit_vector(dx, dy, &ux, &uy, &rho);
-    tx = -uy;
-    ty = ux;
-    ptx = pfx_mixture_mul32(c->pxx, tx, 20u) + pfx_mixture_mul32(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
-    pty = pfx_mixture_mul32(c->pxy, tx, 20u) + pfx_mixture_mul32(c->pyy, ty, 20u);
-    st2 = pfx_mixture_mul(tx, ptx, 30u) + pfx_mixture_mul(ty, pty, 30u);
-    rhs = pfx_mixture_mul((int64_t)p->broad_sagitta_ratio * sd, g->radius > 0 ? g->radius : 0, 16u);
-    return 2 * st2 > rhs;
+    return pfx_mixture_mul((int64_t)p->broad_sagitta_ratio * sd, g->radius > 0 ? g->radius : 0, 16u);
+}
+
+static int bends(const pfx_component_t *c, const lin_t *l, int64_t limit)
+{
+    int32_t tx = -l->hy, ty = l->hx; /* |h| <= 2^30: no overflow */
+    int64_t ptx = pfx_mixture_mul32(c->pxx, tx, 20u) + pfx_mixture_mul32(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
+    int64_t pty = pfx_mixture_mul32(c->pxy, tx, 20u) + pfx_mixture_mul32(c->pyy, ty, 20u);
+    int64_t st2 = pfx_mixture_mul(tx, ptx, 30u) + pfx_mixture_mul(ty, pty, 30u);
+    return 2 * st2 > limit;
 }
 
 static uint32_t ring_sd(const pfx_ring_t *g)
@@ -359,36 +383,65 @@ static uint32_t ring_sd(const pfx_ring_t *g)
 
 int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_params_t *p)
 {
+    lin_t l;
     if (c == NULL || g == NULL || p == NULL) {
         return 0;
     }
-    return is_broad_core(c, pfx_mixture_max_eig(c), g, ring_sd(g), p);
+    if (near_centre(c, pfx_mixture_max_eig(c), g)) {
+        return 1;
+    }
+    first_lin(c, g, &l);
+    return bends(c, &l, bend_limit(g, ring_sd(g), p));
 }
+
+/* log2 N(innov; 0, s) in Q16 from innov (Q20), s (Q30) and q = innov^2 / s
+ * (Q16): -(log2(2 pi) + log2 s) / 2 - q / (2 ln 2). */
+static int64_t innovation_log2lik(int64_t s, int64_t q)
+{
+    pfx_log2_q16_t l2s;
+    (void)pfx_fixed_log2_u64((uint64_t)s, &l2s);
+    return -pfx_mixture_shr_round((int64_t)PFX_LOG2_2PI_Q16 + l2s - (INT64_C(30) << 16), 1u) -
+           pfx_mixture_mul(q, PFX_INV_2LN2_Q30, 30u);
+}
+
+/* The pair lies certainly below the prune floor: the product is not formed. */
+#define COMPACT_BELOW_FLOOR PFX_ERR_EMPTY
 
 /*
  * Iterated extended Kalman update (reference compact_update).  Local frame:
  * e = x - mean in Q20; D = (mean - centre) * 2^10 + e (Q20, int64).
- * Per iteration: h, rho from unit_vector (Q30, Q20); predicted =
- * rho - h.e (Q20); ph = P h (Q30 m^2); s = h.ph + var (Q30); gain
- * g = ph / s (Q30, one reciprocal of s); e = g (r - predicted) (Q20).
+ * Per iteration: h, rho from unit_vector (Q30, Q20; the first from `first`
+ * when given); predicted = rho - h.e (Q20); ph = P h (Q30 m^2);
+ * s = h.ph + var (Q30); gain g = ph / s (Q30, one reciprocal of s);
+ * e = g (r - predicted) (Q20).
  * Posterior P - ph g^T in Q30 (off-diagonal averaged), rounded once to Q20.
  * log2 N(innov; 0, s) = -(log2(2 pi) + log2 s) / 2 - innov^2 / (2 s ln 2),
- * innov^2 / s from v = innov / s (Q30, same reciprocal), Q16.
+ * innov^2 / s = q from v = innov / s (Q30, same reciprocal), Q16.
+ *
+ * Gate (gate > 0, Q16): when q of the first linearisation exceeds it, the
+ * pair is not relinearised: the result is the one-step update (what one
+ * iteration gives).
+ * Converged (reference step_tol_m): the loop stops when an iteration moves
+ * e by at most tol (Q20): |step|^2 <= tol^2, exact (each component is
+ * checked against tol <= 2^30 first, so the squares are at most 2^60).  tol = 0
+ * stops only at a fixed point, where every further iteration would repeat
+ * the last one bit for bit.
+ * Floor: a product whose log2 weight (c + g + the likelihood, saturated to
+ * int32 as stored) is below `floor` is not formed (COMPACT_BELOW_FLOOR);
+ * INT64_MIN never drops.  The weight is known before the posterior, so a
+ * dropped pair costs no covariance work.
  */
-pfx_status_t pfx_range_compact(const pfx_component_t *c, const pfx_ring_t *g, uint32_t iterations,
-                               pfx_component_t *out)
+static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, uint32_t iterations,
+                                 pfx_ratio_q16_t gate, int32_t tol, const lin_t *first, int64_t floor,
+                                 pfx_component_t *out)
 {
-    int64_t bx, by, ex = 0, ey = 0, rho, pred = 0, phx = 0, phy = 0, s = 0, gx = 0, gy = 0, innov = 0;
-    int64_t qxx, qxy, qyy, v, q, ll;
+    int64_t bx, by, ex = 0, ey = 0, rho, pred = 0, phx = 0, phy = 0, s = 0, gx = 0, gy = 0, innov = 0, q = -1;
+    int64_t qxx, qxy, qyy, log2w;
     int32_t hx, hy;
     uint32_t it;
     pfx_recip64_t rs;
-    pfx_log2_q16_t l2s;
     pfx_component_t res;
     pfx_status_t st;
-    if (c == NULL || g == NULL || out == NULL) {
-        return PFX_ERR_ARG;
-    }
     if (iterations < 1u) {
         iterations = 1u;
     }
@@ -398,40 +451,74 @@ pfx_status_t pfx_range_compact(const pfx_component_t *c, const pfx_ring_t *g, ui
     bx = pfx_mixture_offset(g->cx, c->x) * 1024; /* Q20, |.| <= 2^40 */
     by = pfx_mixture_offset(g->cy, c->y) * 1024;
     for (it = 0u; it < iterations; ++it) {
-        unit_vector(bx + ex, by + ey, &hx, &hy, &rho);
-        pred = rho - pfx_fixed_add64_sat(pfx_mixture_mul(hx, ex, 30u), pfx_mixture_mul(hy, ey, 30u));
+        int64_t nx, ny, sx, sy;
+        if (it == 0u && first != NULL) {
+            hx = first->hx; /* unit_vector(bx, by): e = 0 */
+            hy = first->hy;
+            rho = first->rho;
+        } else {
+            unit_vector(bx + ex, by + ey, &hx, &hy, &rho);
+        }
+        pred = rho - pfx_mixture_add_sat(pfx_mixture_mul(hx, ex, 30u), pfx_mixture_mul(hy, ey, 30u));
         phx = pfx_mixture_mul32(c->pxx, hx, 20u) + pfx_mixture_mul32(c->pxy, hy, 20u); /* <= 2^42 */
         phy = pfx_mixture_mul32(c->pxy, hx, 20u) + pfx_mixture_mul32(c->pyy, hy, 20u);
         s = pfx_mixture_mul(hx, phx, 30u) + pfx_mixture_mul(hy, phy, 30u) + (int64_t)g->var * 1024;
         if (s <= 0 || pfx_mixture_recip64((uint64_t)s, &rs) != PFX_OK) {
             return PFX_ERR_DEGENERATE;
         }
-        gx = pfx_mixture_mul_recip(phx, &rs, 30u);
-        gy = pfx_mixture_mul_recip(phy, &rs, 30u);
         innov = (int64_t)g->radius * 1024 - pred;
+        if (it == 0u && gate > 0) {
+            q = pfx_mixture_mul(innov, pfx_mixture_mul_recip_inline(innov, &rs, 40u), 34u);
+            if (q > gate) {
+                iterations = 1u; /* gated: the one-step update */
+            } else {
+                q = -1; /* recomputed at the last linearisation */
+            }
+        }
+        gx = pfx_mixture_mul_recip_inline(phx, &rs, 30u);
+        gy = pfx_mixture_mul_recip_inline(phy, &rs, 30u);
         /* clamped to +-2^50 (2^30 m): only absurd inputs reach it, and D stays in range */
-        ex = pfx_fixed_clamp64(pfx_mixture_mul(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
-        ey = pfx_fixed_clamp64(pfx_mixture_mul(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        nx = pfx_mixture_clamp(pfx_mixture_mul(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        ny = pfx_mixture_clamp(pfx_mixture_mul(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        sx = nx - ex; /* |.| <= 2^51 */
+        sy = ny - ey;
+        ex = nx;
+        ey = ny;
+        if (sx >= -tol && sx <= tol && sy >= -tol && sy <= tol && sx * sx + sy * sy <= (int64_t)tol * tol) {
+            break; /* converged */
+        }
+    }
+    if (q < 0) {
+        q = pfx_mixture_mul(innov, pfx_mixture_mul_recip_inline(innov, &rs, 40u), 34u);
+    }
+    log2w = pfx_mixture_add_sat((int64_t)c->log2w + g->log2w, innovation_log2lik(s, q));
+    log2w = pfx_mixture_sat32(log2w);
+    if (log2w < floor) {
+        return COMPACT_BELOW_FLOOR;
     }
     qxx = (int64_t)c->pxx * 1024 - pfx_mixture_mul(phx, gx, 30u);
     qyy = (int64_t)c->pyy * 1024 - pfx_mixture_mul(phy, gy, 30u);
     qxy = (int64_t)c->pxy * 1024 -
-          pfx_mixture_shr_round(pfx_fixed_add64_sat(pfx_mixture_mul(phx, gy, 30u), pfx_mixture_mul(phy, gx, 30u)), 1u);
+          pfx_mixture_shr_round(pfx_mixture_add_sat(pfx_mixture_mul(phx, gy, 30u), pfx_mixture_mul(phy, gx, 30u)), 1u);
     st = pfx_mixture_store_cov(pfx_mixture_shr_round(qxx, 10u), pfx_mixture_shr_round(qxy, 10u),
                                pfx_mixture_shr_round(qyy, 10u), &res);
     if (st != PFX_OK) {
         return st;
     }
-    v = pfx_mixture_mul_recip(innov, &rs, 40u);
-    q = pfx_mixture_mul(innov, v, 34u);
-    (void)pfx_fixed_log2_u64((uint64_t)s, &l2s);
-    ll = -pfx_mixture_shr_round((int64_t)PFX_LOG2_2PI_Q16 + l2s - (INT64_C(30) << 16), 1u) -
-         pfx_mixture_mul(q, PFX_INV_2LN2_Q30, 30u);
     res.x = pfx_mixture_sat32((int64_t)c->x + pfx_mixture_shr_round(ex, 10u));
     res.y = pfx_mixture_sat32((int64_t)c->y + pfx_mixture_shr_round(ey, 10u));
-    res.log2w = pfx_mixture_sat32(pfx_fixed_add64_sat((int64_t)c->log2w + g->log2w, ll));
+    res.log2w = (int32_t)log2w;
     *out = res;
     return PFX_OK;
+}
+
+pfx_status_t pfx_range_compact(const pfx_component_t *c, const pfx_ring_t *g, uint32_t iterations,
+                               pfx_component_t *out)
+{
+    if (c == NULL || g == NULL || out == NULL) {
+        return PFX_ERR_ARG;
+    }
+    return compact_core(c, g, iterations, 0, 0, NULL, INT64_MIN, out);
 }
 
 /* u_k . d in Q40 (Q30 table * Q10 offset, |d| <= 2^30: each <= 2^60). */
@@ -538,11 +625,42 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
     return broad_core(c, pfx_mixture_max_eig(c), g, p, out, n_out);
 }
 
+/* Stream one product into the keep-heaviest buffer unless it is below the
+ * floor; raise the floor with it.  best (int64) is the heaviest log2 weight
+ * streamed so far (INT64_MIN: none), floor = best + prune_log2_ratio. */
+typedef struct {
+    int64_t best;
+    int64_t floor;
+} stream_floor_t;
+
+static void push_product(pfx_component_t *cand, uint32_t *n_cand, const pfx_params_t *p, stream_floor_t *f,
+                         const pfx_component_t *prod)
+{
+    if ((int64_t)prod->log2w < f->floor) {
+        return; /* certainly pruned: below the floor of the heaviest so far */
+    }
+    (void)pfx_mixture_stream_push(cand, n_cand, p->candidate_cap, prod);
+    if ((int64_t)prod->log2w > f->best) {
+        f->best = prod->log2w;
+        f->floor = f->best + p->prune_log2_ratio; /* >= -2^31 - 24 * 2^16: no overflow */
+    }
+}
+
+/*
+ * Products that pruning would drop are not streamed.  Pruning keeps
+ * log2w >= max + prune_log2_ratio, with max the heaviest of all products
+ * (always in the buffer); the heaviest streamed so far is at most that max,
+ * so a product below its floor is pruned whatever comes later, and leaving
+ * it out changes neither the max nor which products the buffer keeps above
+ * the final floor, nor their order.  After pfx_mixture_prune the buffer is
+ * the same as with every product streamed.
+ */
 pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const pfx_ring_t *rings, uint32_t nr,
                                 const pfx_params_t *p, pfx_component_t *cand, uint32_t *n_cand,
                                 pfx_range_scratch_t *s)
 {
     uint32_t b, q, k;
+    stream_floor_t f;
     if (n_cand != NULL) {
         *n_cand = 0u;
     }
@@ -550,22 +668,33 @@ pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const p
         n > PFX_MAX_CANDIDATES || nr > PFX_MAX_RINGS || p->candidate_cap > PFX_MAX_CANDIDATES) {
         return PFX_ERR_ARG;
     }
+    f.best = INT64_MIN;
+    f.floor = INT64_MIN;
     for (q = 0u; q < nr; ++q) {
-        s->ring_sd[q] = ring_sd(&rings[q]);
+        s->bend_limit[q] = bend_limit(&rings[q], ring_sd(&rings[q]), p);
     }
     for (b = 0u; b < n; ++b) {
-        int32_t lam = pfx_mixture_max_eig(&work[b]);
+        const pfx_component_t *c = &work[b];
+        int32_t lam = pfx_mixture_max_eig(c);
         for (q = 0u; q < nr; ++q) {
-            if (is_broad_core(&work[b], lam, &rings[q], s->ring_sd[q], p)) {
+            const pfx_ring_t *g = &rings[q];
+            lin_t l;
+            int broad = near_centre(c, lam, g);
+            if (!broad) {
+                first_lin(c, g, &l);
+                broad = bends(c, &l, s->bend_limit[q]);
+            }
+            if (broad) {
                 uint32_t na = 0u;
-                (void)broad_core(&work[b], lam, &rings[q], p, s->arcs, &na);
+                (void)broad_core(c, lam, g, p, s->arcs, &na);
                 for (k = 0u; k < na; ++k) {
-                    (void)pfx_mixture_stream_push(cand, n_cand, p->candidate_cap, &s->arcs[k]);
+                    push_product(cand, n_cand, p, &f, &s->arcs[k]);
                 }
             } else {
                 pfx_component_t prod;
-                if (pfx_range_compact(&work[b], &rings[q], p->iekf_iterations, &prod) == PFX_OK) {
-                    (void)pfx_mixture_stream_push(cand, n_cand, p->candidate_cap, &prod);
+                if (compact_core(c, g, p->iekf_iterations, p->product_gate, PFX_IEKF_STEP_TOL_Q20, &l, f.floor,
+                                 &prod) == PFX_OK) {
+                    push_product(cand, n_cand, p, &f, &prod);
                 }
             }
         }

@@ -132,6 +132,7 @@ def params_c(p: EstimatorParams = PARAMS, blocked_weight: float = 0.0, blocked_b
     c.blocked_weight = rq(blocked_weight, 30)
     c.blocked_bias = rq(blocked_bias, 10)
     c.max_range = rq(max_range, 10)
+    c.product_gate = rq(p.product_gate_sigma2, 16)
     assert lib.pfx_params_check(c) == OK
     return c
 
@@ -555,6 +556,90 @@ def test_broad_update_matches_twin():
     assert empty > 50 and arcs > 5000
 
 
+
+def test_defaults_and_step_tolerance_match_twin():
+    c = ffi.new("pfx_params_t *")
+    lib.pfx_params_default(c)
+    assert c.product_gate == rq(PARAMS.product_gate_sigma2, 16)
+    assert lib.PFX_IEKF_STEP_TOL_Q20 == R.IEKF_STEP_TOL_M * 2**20  # exact: a power of two
+
+
+def multiply_c(work: Mixture, rings, nr: int, pc):
+    """pfx_range_multiply of a quantised work mixture with nr C rings: the streamed candidates."""
+    cand = ffi.new("pfx_component_t[64]")
+    n = ffi.new("uint32_t *")
+    scratch = ffi.new("pfx_range_scratch_t *")
+    assert lib.pfx_range_multiply(to_c(work), len(work), rings, nr, pc, cand, n, scratch) == OK
+    return cand, n
+
+
+def test_multiply_gates_pairs_far_off_the_ring():
+    # One compact pair per call (no earlier product: nothing is left out).  Far
+    # off the ring (first squared normalised innovation beyond the gate) the
+    # product is the one-iteration update bit for bit; near it, the twin's
+    # relinearised update.
+    rng = np.random.default_rng(21)
+    pc = params_c()
+    one_step = ffi.new("pfx_component_t *")
+    far = near = 0
+    for _ in range(800):
+        c = quantised(Mixture.single(rng.uniform(0, 40, 2), random_cov(rng, rng.uniform(0.001, 0.3))))
+        centre = rng.uniform(0, 40, 2)
+        rho = float(np.linalg.norm(c.mean[0] - centre))
+        radius = max(rho + rng.choice([-1, 1]) * rng.uniform(0, 4), 0.0)
+        g, cen, rad, var = ring_c(centre, radius, rng.uniform(0.005, 0.1))
+        if R.is_broad(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]), PARAMS)[0]:
+            continue
+        h = (c.mean[0] - cen) / np.linalg.norm(c.mean[0] - cen)
+        nis = (rad - np.linalg.norm(c.mean[0] - cen)) ** 2 / (h @ c.cov[0] @ h + var)
+        cand, n = multiply_c(c, g, 1, pc)
+        if nis > 1.01 * PARAMS.product_gate_sigma2:
+            far += 1
+            assert lib.pfx_range_compact(to_c(c), g, 1, one_step) == OK
+            assert n[0] == 1 and bytes(ffi.buffer(cand, 24)) == bytes(ffi.buffer(one_step))
+        elif nis < 0.99 * PARAMS.product_gate_sigma2:
+            near += 1
+            x, p, ll = R.compact_update(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]),
+                                        PARAMS.iekf_iterations, PARAMS.product_gate_sigma2, R.IEKF_STEP_TOL_M)  # fmt: skip
+            got = from_c(cand, n[0])
+            np.testing.assert_allclose(got.mean[0], x[0], atol=MEAN_M)
+            np.testing.assert_allclose(got.cov[0], p[0], atol=COMPACT_COV_REL * np.abs(p[0]).max())
+            assert abs(got.logw[0] - ll[0]) <= PRODUCT_LOGW + LOGW_REL * abs(ll[0])
+    assert far > 80 and near > 80  # both sides of the gate exercised
+
+
+def test_multiply_leaves_out_only_what_pruning_drops():
+    # The stream drops a product below the prune floor of the heaviest product
+    # before it.  With the floor 24 bits down (the lowest prune_log2_ratio) it
+    # drops far less; after pruning at the default ratio both buffers must be
+    # the same bytes.
+    rng = np.random.default_rng(22)
+    pc, wide = params_c(), params_c()
+    wide.prune_log2_ratio = -(24 << 16)
+    ratio = pc.prune_log2_ratio
+    fewer = 0
+    for _ in range(150):
+        k = int(rng.integers(1, 17))
+        centre = rng.uniform(10, 30, 2)
+        work = quantised(Mixture(rng.normal(0, 3, k), centre + rng.normal(0, 3, (k, 2)),
+                                 np.array([random_cov(rng, rng.uniform(0.01, 1.0)) for _ in range(k)])))  # fmt: skip
+        covs = np.array([random_cov(rng, rng.uniform(0.001, 0.2)) for _ in range(4)])
+        neighbour = quantised(Mixture(rng.normal(0, 1, 4) - 2, rng.uniform(0, 40, (4, 2)), covs))
+        rings = ffi.new("pfx_ring_t[16]")
+        nr = ffi.new("uint32_t *")
+        r = float(np.linalg.norm(centre - neighbour.mean[0]))
+        assert lib.pfx_range_rings(belief_c(neighbour), rq(r, 10), rq(0.1, 10), pc, rings, nr) == OK
+        out = []
+        for p in (pc, wide):
+            cand, n = multiply_c(work, rings, nr[0], p)
+            before = n[0]
+            assert lib.pfx_mixture_prune(cand, n, ratio) == OK
+            out.append((before, bytes(ffi.buffer(cand, 24 * n[0]))))
+        assert out[0][1] == out[1][1]
+        fewer += out[0][0] < out[1][0]
+    assert fewer > 30  # the floor did leave products out
+
+
 # --- node ----------------------------------------------------------------------------------
 
 BOUNDS = (0.0, 0.0, 40.0, 40.0)
@@ -742,7 +827,8 @@ def update_error_cases():
                         ("broad_sagitta_ratio", -1), ("merge_gate", -1), ("prune_log2_ratio", 1),
                         ("prune_log2_ratio", -(25 << 16)), ("broadcast_inflation", 0), ("censor_spread", -1),
                         ("mode_gate", -1), ("mode_min_weight", (1 << 30) + 1), ("blocked_weight", 1 << 30),
-                        ("blocked_bias", -1), ("max_range", 0), ("max_range", (1 << 24) + 1)]:  # fmt: skip
+                        ("blocked_bias", -1), ("max_range", 0), ("max_range", (1 << 24) + 1),
+                        ("product_gate", -1)]:  # fmt: skip
         cases.append((f"param {name}={value}", param(name, value), Status.ERR_ARG))
     return cases
 

@@ -14,6 +14,7 @@ from scipy.stats import multivariate_normal, norm
 from peerfix.reference.mixture import Mixture, logsumexp, max_eig2
 from peerfix.reference.params import RING_DIRECTIONS, EstimatorParams
 from peerfix.reference.ranging import (
+    IEKF_STEP_TOL_M,
     Rings,
     broad_update,
     compact_update,
@@ -129,6 +130,59 @@ def test_compact_update_moves_towards_ring():
     # Posterior is tighter than the prior along any direction (P - P+ PSD).
     assert np.all(np.linalg.eigvalsh(cov - p) > -1e-12)
     assert np.all(np.linalg.eigvalsh(p) > 0)
+
+
+
+def test_compact_update_gate_keeps_the_one_step_update_far_off_the_ring():
+    # Two pairs of one component: 0.15 m off the ring (first squared normalised
+    # innovation 0.15^2 / S ~ 0.6) and 3 m off (~260, beyond the gate of 64).
+    c = NEAR_LINEAR
+    rho = float(np.linalg.norm(c["mean"]))
+    radius = np.array([rho + 0.15, rho + 3.0])
+    args = (np.tile(c["mean"], (2, 1)), np.tile(c["cov"], (2, 1, 1)), np.tile(c["centre"], (2, 1)), radius,
+            np.full(2, c["var"]))  # fmt: skip
+    full, one_step = compact_update(*args, 3), compact_update(*args, 1)
+    gated = compact_update(*args, 3, gate_sigma2=64.0)
+    _, _, predicted, s = linear_kalman(c["mean"], c["cov"], c["centre"], radius[1], c["var"])
+    assert (radius[1] - predicted) ** 2 / s > 64.0 > (radius[0] - rho) ** 2 / s
+    for g, f, o in zip(gated, full, one_step):
+        np.testing.assert_array_equal(g[0], f[0])  # within the gate: relinearised
+        np.testing.assert_array_equal(g[1], o[1])  # beyond it: the one-step (linear Kalman) update
+    assert not np.allclose(full[0][1], one_step[0][1], rtol=0, atol=1e-4)  # the gate changed something
+    # Its weight is that linearisation's innovation likelihood (scipy.stats.norm).
+    assert gated[2][1] == pytest.approx(norm.logpdf(radius[1], predicted, np.sqrt(s)), abs=1e-10)
+
+
+def test_compact_update_stops_relinearising_once_converged():
+    # NEAR_LINEAR 0.15 m off the ring: the second iteration moves the estimate
+    # by 3e-5 m, below the tolerance, so the third is skipped.  An elongated
+    # component crossed obliquely moves by 0.2 m in its second iteration and
+    # keeps all three.
+    tol = IEKF_STEP_TOL_M
+    c = NEAR_LINEAR
+    rho = float(np.linalg.norm(c["mean"]))
+    near = (one(c["mean"]), one(c["cov"]), one(c["centre"]), one(rho + 0.15), one(c["var"]))
+    x1, x2, x3 = (compact_update(*near, k)[0][0] for k in (1, 2, 3))
+    assert np.linalg.norm(x2 - x1) <= tol < np.linalg.norm(x1 - c["mean"])
+    stopped = compact_update(*near, 3, step_tol_m=tol)
+    for a, b in zip(stopped, compact_update(*near, 2)):
+        np.testing.assert_array_equal(a, b)
+    np.testing.assert_allclose(stopped[0][0], x3, rtol=0, atol=1e-6)  # what the skipped iteration would add
+    elongated = (one(c["mean"]), one(np.diag([0.02, 4.0])), one(c["centre"]), one(rho + 0.5), one(c["var"]))
+    for a, b in zip(compact_update(*elongated, 3, step_tol_m=tol), compact_update(*elongated, 3)):
+        np.testing.assert_array_equal(a, b)
+
+
+def test_multiply_by_rings_uses_the_products_gate():
+    belief = Mixture(np.zeros(1), NEAR_LINEAR["mean"][None], NEAR_LINEAR["cov"][None])
+    rho = float(np.linalg.norm(NEAR_LINEAR["mean"]))
+    rings = Rings(np.zeros(1), np.zeros((1, 2)), np.array([rho + 3.0]), np.array([NEAR_LINEAR["var"]]))
+    one_step = compact_update(belief.mean, belief.cov, rings.centre, rings.radius, rings.var, 1)
+    out = multiply_by_rings(belief, rings, PARAMS)
+    np.testing.assert_array_equal(out.mean, one_step[0])
+    assert out.logw[0] == one_step[2][0]
+    ungated = multiply_by_rings(belief, rings, PARAMS.replace(product_gate_sigma2=0.0))
+    assert not np.allclose(ungated.mean, one_step[0], rtol=0, atol=1e-4)
 
 
 # --- ring messages ---

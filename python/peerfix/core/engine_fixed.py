@@ -88,6 +88,7 @@ def c_params(params: EstimatorParams, blocked: BlockedModel, max_range_m: float)
     p.blocked_weight = to_q(blocked.weight, FRAC_FRAC)
     p.blocked_bias = len_q(blocked.bias_m)
     p.max_range = len_q(max_range_m)
+    p.product_gate = to_q(params.product_gate_sigma2, RATIO_FRAC)
     check(lib.pfx_params_check(p), "pfx_params_check")
     return p
 

@@ -49,6 +49,13 @@ class EstimatorParams:
     iekf_iterations: int = 3
     """Relinearisations of the compact (iterated extended Kalman) update."""
 
+    product_gate_sigma2: float = 64.0
+    """A compact product whose squared normalised innovation at the first
+    linearisation (at the component's mean) exceeds this is not relinearised:
+    it keeps the one-step update and its weight.  Such a product lies many
+    sigmas off the ring and is almost always pruned; the gate saves the tag
+    the relinearisations (0 = off: every product is relinearised)."""
+
     merge_gate_sigma2: float = 1.0
     """Before Runnalls' reduction, components this close (squared Mahalanobis
     distance, summed covariances) are folded into one."""

@@ -9,7 +9,9 @@ second, wider ring at r - bias carries the blocked-path share.
 A belief component meets a ring in one of two ways:
 - compact (small against the ring's curvature): an iterated extended Kalman
   update of the range function h(x) = ||x - c||; the weight is multiplied by
-  the innovation likelihood;
+  the innovation likelihood.  A pair far off the ring at the first
+  linearisation (product_gate_sigma2) keeps the one-step update: it is
+  almost always pruned, and relinearising it would be wasted work on a tag;
 - broad: the part of the ring inside the component's few-sigma window is cut
   into arcs, each a Gaussian; the component is multiplied by each arc (a linear
   update) and each product is weighted by the overlap N(m_arc; mu, P + P_arc)
@@ -28,6 +30,11 @@ import numpy as np
 
 from .mixture import Mixture, concat, gaussian_product, max_eig2, sym2
 from .params import RING_DIRECTIONS, EstimatorParams
+
+# A compact update stops relinearising once an iteration moves the estimate
+# by at most this (0.12 mm, a power of two so that the core's Q20 image is
+# exact).  The next iteration would move it by micrometres at most.
+IEKF_STEP_TOL_M = 2.0**-13
 
 _ANGLES = 2.0 * np.pi * np.arange(RING_DIRECTIONS) / RING_DIRECTIONS
 DIRECTIONS = np.stack([np.cos(_ANGLES), np.sin(_ANGLES)], axis=1)  # (D, 2)
@@ -149,23 +156,46 @@ def is_broad(mean, cov, centre, radius, var, params: EstimatorParams) -> np.ndar
     return near_centre | (sagitta > params.broad_sagitta_ratio * np.sqrt(var))
 
 
-def compact_update(mean, cov, centre, radius, var, iterations: int):
+def compact_update(
+    mean, cov, centre, radius, var, iterations: int, gate_sigma2: float = 0.0, step_tol_m: float = 0.0
+):
     """Iterated extended Kalman update of (mean, cov) by the range to `centre`.
 
     Vectorised over n pairs.  Returns posterior means, covariances and the log
     innovation likelihood log N(r; h(x_n) + H (mu - x_n), H P H^T + s^2) at
     the last linearisation point x_n.
+
+    A pair stops relinearising early (the defaults keep every iteration):
+    - gate (gate_sigma2 > 0): when its squared normalised innovation at the
+      first linearisation, (r - ||mu - c||)^2 / S, exceeds gate_sigma2, it
+      keeps the one-step update and that linearisation's likelihood.  Such a
+      product lies far off the ring and is pruned in all but the rarest cases;
+    - converged: when an iteration moves its estimate by at most step_tol_m
+      (the usual stopping rule of an iterated filter; the next one would move
+      it by far less).
     """
+    n = mean.shape[0]
     x = mean.copy()
-    for _ in range(max(1, iterations)):
-        d = x - centre
+    predicted = np.empty(n)
+    s = np.empty(n)
+    gain = np.empty((n, 2))
+    rows = np.arange(n)  # pairs still being relinearised
+    for k in range(max(1, iterations)):
+        m, p, c, xr = mean[rows], cov[rows], centre[rows], x[rows]
+        d = xr - c
         rho = np.maximum(np.hypot(d[:, 0], d[:, 1]), 1e-9)
         h = d / rho[:, None]
-        predicted = rho + np.einsum("ni,ni->n", h, mean - x)
-        ph = np.einsum("nij,nj->ni", cov, h)
-        s = np.einsum("ni,ni->n", h, ph) + var
-        gain = ph / s[:, None]
-        x = mean + gain * (radius - predicted)[:, None]
+        predicted[rows] = rho + np.einsum("ni,ni->n", h, m - xr)
+        ph = np.einsum("nij,nj->ni", p, h)
+        s[rows] = np.einsum("ni,ni->n", h, ph) + var[rows]
+        gain[rows] = ph / s[rows][:, None]
+        x[rows] = m + gain[rows] * (radius[rows] - predicted[rows])[:, None]
+        step = x[rows] - xr
+        going = np.hypot(step[:, 0], step[:, 1]) > step_tol_m
+        if k == 0 and gate_sigma2 > 0.0:
+            innov0 = radius[rows] - predicted[rows]
+            going &= innov0 * innov0 <= gate_sigma2 * s[rows]
+        rows = rows[going]
     post = sym2(cov - s[:, None, None] * gain[:, :, None] * gain[:, None, :])
     innov = radius - predicted
     loglik = -0.5 * (np.log(2.0 * np.pi * s) + innov * innov / s)
@@ -220,7 +250,8 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     out_cov = np.empty((nb * nr, 2, 2))
     compact = np.flatnonzero(~broad)
     if compact.size:
-        x, p, ll = compact_update(mean[compact], cov[compact], centre[compact], radius[compact], var[compact], params.iekf_iterations)
+        x, p, ll = compact_update(mean[compact], cov[compact], centre[compact], radius[compact], var[compact],
+                                  params.iekf_iterations, params.product_gate_sigma2, IEKF_STEP_TOL_M)
         out_logw[compact] = base[compact] + ll
         out_mean[compact] = x
         out_cov[compact] = p
