@@ -22,6 +22,7 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     from .commands import air, compare, demo, run
+    from .commands import budget
     from .simulate import cli as simulate_cli
 
     simulate_cli.register(sub)
@@ -29,6 +30,7 @@ def build_parser() -> argparse.ArgumentParser:
     compare.register(sub)
     air.register(sub)
     demo.register(sub)
+    budget.register(sub)
     return parser
 
 

@@ -9,6 +9,10 @@ Answered by measurement on the same C that the host runs:
 - :mod:`peerfix.budget.emulator`: the linked ELF run in unicorn, function by
   function: results (bit-exact against the host), instruction counts,
   stack high-water mark.
+- :mod:`peerfix.budget.capture`: real inputs of the entry points recorded
+  from scenario runs, replayed on the target and compared byte for byte.
+- :mod:`peerfix.budget.report`: the `peerfix budget` report and the
+  release budget (budget.toml).
 - :mod:`peerfix.budget.timing`: the cycle model.  Cycle figures are an
   ESTIMATE (documented instruction timings, zero wait states; no flash wait
   states, bus contention, caches or interrupts).

@@ -11,10 +11,11 @@ between calls") is recorded by size only: the target gets it zeroed, so a
 result that depended on stale scratch would show up as a mismatch.
 
 Sampling bounds the run time: identical inputs are kept once; each
-configuration bucket (the update: inbox count and K; the node calls: K;
-the frame calls: components in the belief) keeps a seeded reservoir sample
-of what it saw, and :func:`select` takes calls round-robin over the
-buckets (the headline bucket, 12 heard broadcasts at K = 4, first).  The
+configuration bucket (the update: inbox count and K; adding to the inbox:
+its count after the call; the node calls: K; the frame calls: components
+in the belief) keeps a seeded reservoir sample of what it saw, and
+:func:`select` takes calls round-robin over the buckets (the headline
+bucket, 12 heard broadcasts at K = 4, first).  The
 same seed gives the same calls, and a smaller selection is a subset of a
 larger one.
 
@@ -33,6 +34,7 @@ the same entry point and compares every output byte, every input buffer
 from __future__ import annotations
 
 import dataclasses
+import gc
 import hashlib
 import random
 from collections.abc import Callable, Iterable
@@ -47,6 +49,7 @@ from peerfix.core.engine_fixed import FixedEngine, area_q
 # Entry points of a tag's firmware loop, in report order.
 ENTRY_POINTS = (
     "pfx_node_update",
+    "pfx_inbox_add",
     "pfx_node_predict",
     "pfx_node_broadcast",
     "pfx_node_estimate",
@@ -61,6 +64,7 @@ ENTRY_POINTS = (
 # on the target whatever the host's width.
 ARG_KINDS: dict[str, tuple[str, ...]] = {
     "pfx_node_update": ("inout", "in", "scratch"),
+    "pfx_inbox_add": ("inout", "in", "i32", "i32", "u32"),
     "pfx_node_predict": ("inout", "u32", "i32"),
     "pfx_node_broadcast": ("in", "out"),
     "pfx_node_estimate": ("in", "out"),
@@ -77,6 +81,8 @@ BYTE_SIZE_ARG: dict[str, dict[int, int]] = {
 HEADLINE_BUCKET = (("neighbours", 12), ("K", 4))  # the issue's figure: 12 heard broadcasts, K = 4
 PREDICT_DT_MS = (100, 1000, 5000)  # time steps of the extra predictions
 PREDICT_Q_M2_PER_S = 1.0  # process noise of the runner's default random walk
+POOL_PER_BUCKET = 1000  # distinct calls kept per (entry point, bucket)
+POOL_SMALLER = {"pfx_inbox_add": 200}  # 17 buckets of 7 kB records: enough for 1000 calls, bounded memory
 
 
 def _bucket_update(args) -> tuple[tuple[str, int], ...]:
@@ -94,6 +100,7 @@ def _bucket_belief(index: int) -> Callable:
 # Configuration of a call, read from its arguments after the host call.
 BUCKETS: dict[str, Callable] = {
     "pfx_node_update": _bucket_update,
+    "pfx_inbox_add": lambda args: (("heard", int(args[0].count)),),  # inbox count after the call
     "pfx_node_predict": _bucket_node,
     "pfx_node_broadcast": _bucket_node,
     "pfx_node_estimate": _bucket_node,
@@ -168,7 +175,7 @@ RUNS: tuple[Run, ...] = (
 class Recorder:
     """Per (entry point, bucket) reservoir samples of distinct calls (seeded)."""
 
-    def __init__(self, pool_per_bucket: int = 200, seed: int = 0):
+    def __init__(self, pool_per_bucket: int = POOL_PER_BUCKET, seed: int = 0):
         self.pool_per_bucket = pool_per_bucket
         self.rng = random.Random(seed)
         self.pools: dict[str, dict[tuple, list[CapturedCall]]] = {e: {} for e in ENTRY_POINTS}
@@ -192,11 +199,12 @@ class Recorder:
         n = self.distinct.get(key, 0) + 1
         self.distinct[key] = n
         pool = self.pools[call.entry].setdefault(call.bucket, [])
-        if len(pool) < self.pool_per_bucket:
+        cap = min(self.pool_per_bucket, POOL_SMALLER.get(call.entry, self.pool_per_bucket))
+        if len(pool) < cap:
             pool.append(call)
         else:
             j = self.rng.randrange(n)  # reservoir sampling: every distinct call kept with equal chance
-            if j < self.pool_per_bucket:
+            if j < cap:
                 pool[j] = call
 
     def wrap(self, name: str, real: Callable) -> Callable:
@@ -207,7 +215,7 @@ class Recorder:
 
         def recorded(*args):
             pre: list[Arg] = []
-            for i, (kind, ct, a) in enumerate(zip(kinds, ctypes, args)):
+            for i, (kind, ct, a) in enumerate(zip(kinds, ctypes, args, strict=True)):
                 if kind in ("u32", "i32"):
                     pre.append(Arg(kind, value=int(a)))
                 elif kind == "scratch":
@@ -218,7 +226,7 @@ class Recorder:
                     pre.append(Arg(kind, data=_read(a, _pointer_size(ct, args, sized.get(i)))))
             status = real(*args)
             outputs = []
-            for i, (kind, ct, a) in enumerate(zip(kinds, ctypes, args)):
+            for i, (kind, a) in enumerate(zip(kinds, args, strict=True)):
                 if kind == "out:size_t":
                     outputs.append(_size_t_bytes(a))
                 elif kind in ("inout", "out"):
@@ -385,26 +393,34 @@ class CaptureSet:
 
 def capture(per_entry: int = 1000, headline_min: int = 50, seed: int = 0,
             runs: tuple[Run, ...] = RUNS) -> CaptureSet:
-    """Run the scenarios, record, and select ``per_entry`` calls per entry point
-    (fewer only if the runs did not make that many distinct calls)."""
-    return _capture(per_entry, headline_min, seed, tuple(runs))
-
-
-@lru_cache(maxsize=4)
-def _capture(per_entry: int, headline_min: int, seed: int, runs: tuple[Run, ...]) -> CaptureSet:
-    # Pools big enough that a round-robin selection of per_entry calls is
-    # never short of calls in a well-filled bucket.
-    recorder = Recorder(pool_per_bucket=max(per_entry, headline_min), seed=seed)
-    for run in runs:
-        run_and_record(run, recorder)
-    record_predictions(recorder)
+    """Run the scenarios (once per seed and runs: cached), record, and select
+    ``per_entry`` calls per entry point (fewer only if the runs did not make
+    that many distinct calls), ``headline_min`` of them in the headline bucket."""
+    recorder = _record(seed, tuple(runs))
     calls = {}
     for entry in ENTRY_POINTS:
         first = HEADLINE_BUCKET if entry == "pfx_node_update" else None
         calls[entry] = select(recorder.pools[entry], per_entry, seed, first, headline_min)
     distinct = {e: sum(n for (entry, _), n in recorder.distinct.items() if entry == e) for e in ENTRY_POINTS}
     available = {e: {b: n for (entry, b), n in recorder.distinct.items() if entry == e} for e in ENTRY_POINTS}
-    return CaptureSet(calls, runs, dict(recorder.calls_seen), distinct, seed, available)
+    return CaptureSet(calls, tuple(runs), dict(recorder.calls_seen), distinct, seed, available)
+
+
+@lru_cache(maxsize=2)
+def _record(seed: int, runs: tuple[Run, ...]) -> Recorder:
+    # The pools do not depend on how many calls are selected, so a smaller
+    # selection is a subset of a larger one.
+    recorder = Recorder(POOL_PER_BUCKET, seed=seed)
+    was_enabled = gc.isenabled()
+    gc.disable()  # tens of thousands of kept records and no cycles: collection passes only cost time
+    try:
+        for run in runs:
+            run_and_record(run, recorder)
+        record_predictions(recorder)
+    finally:
+        if was_enabled:
+            gc.enable()
+    return recorder
 
 
 # ---- replay on the target --------------------------------------------------------
@@ -448,7 +464,7 @@ def replay(em, call: CapturedCall) -> Replayed:
     if res.value != call.status:
         problems.append(f"status {res.value} (host {call.status})")
     outs = iter(call.outputs)
-    for i, (a, addr) in enumerate(zip(call.args, addrs)):
+    for i, (a, addr) in enumerate(zip(call.args, addrs, strict=True)):
         if addr is None or a.kind == "scratch":
             continue
         want = next(outs) if a.is_output else a.data

@@ -1,0 +1,70 @@
+"""`peerfix budget`: will the core fit on the tag, and how long does a call take?
+
+Cross-builds the core, replays calls captured from scenario runs on the
+emulated target, and reports cost (instructions, estimated cycles, time at a
+clock), flash, RAM, stack and message size, and whether every call gave the
+host's bytes.  Exit status 1 when any call mismatches or a [release] limit of
+the budget file is exceeded; the [targets] only report met / not met.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from .common import print_json
+
+
+def register(sub) -> None:
+    p = sub.add_parser("budget", help="cost, size and bit-exactness of the C core on a Cortex-M target",
+                       description=__doc__)
+    p.add_argument("--target", choices=("cortex-m4", "cortex-m0plus"), default="cortex-m4", help="CPU (default cortex-m4)")
+    p.add_argument("--opt", choices=("O2", "Os"), default="O2", help="optimisation level (default O2)")
+    p.add_argument("--clock-mhz", type=float, default=64.0, metavar="MHZ", help="clock for the times (default 64)")
+    p.add_argument("--json", action="store_true", help="print the report as JSON")
+    p.add_argument("--out", type=Path, metavar="DIR", help="also write DIR/budget.md and DIR/budget.json")
+    p.add_argument("--quick", action="store_true", help="100 captured calls per entry point instead of 1000")
+    p.add_argument("--budget", type=Path, metavar="FILE", default=None,
+                   help="release budget to check (default: budget.toml of the repository)")
+    p.set_defaults(handler=handle)
+
+
+def handle(args) -> int:
+    if args.clock_mhz <= 0:
+        raise SystemExit("peerfix: error: --clock-mhz must be > 0")
+    try:
+        from peerfix.budget.build import TargetConfig, ToolchainMissing, toolchain_available
+        from peerfix.budget.report import DEFAULT_BUDGET, attach_budget, budget_report, load_budget, \
+            render_markdown, write_report
+    except ImportError as err:  # unicorn / capstone / pyelftools are test extras
+        print(f"peerfix: error: {err}; install the target-budget extras: pip install -e '.[test]'", file=sys.stderr)
+        return 2
+    if not toolchain_available():
+        print("peerfix: error: arm-none-eabi-gcc not found; run tools/install_cross.sh", file=sys.stderr)
+        return 2
+    budget_path = args.budget or DEFAULT_BUDGET
+    if args.budget is not None and not budget_path.is_file():
+        raise SystemExit(f"peerfix: error: budget file {budget_path} not found")
+    try:
+        doc = budget_report(TargetConfig(args.target, args.opt), clock_mhz=args.clock_mhz, quick=args.quick)
+    except ToolchainMissing as err:
+        print(f"peerfix: error: {err}", file=sys.stderr)
+        return 2
+    checks = []
+    if budget_path.is_file():
+        try:
+            budget = load_budget(budget_path)
+        except ValueError as err:  # tomllib.TOMLDecodeError included
+            print(f"peerfix: error: budget file {budget_path}: {err}", file=sys.stderr)
+            return 2
+        checks = attach_budget(doc, budget, budget_path)
+    if args.out is not None:
+        write_report(doc, args.out)
+    if args.json:
+        print_json(doc)
+    else:
+        sys.stdout.write(render_markdown(doc))
+        if args.out is not None:
+            print(f"-> {args.out / 'budget.md'}, {args.out / 'budget.json'}")
+    failed = doc["mismatched_calls"] > 0 or any(c.table == "release" and not c.ok for c in checks)
+    return 1 if failed else 0

@@ -1,0 +1,202 @@
+"""`peerfix budget`: the report's figures, its JSON keys, and that a wrong result is caught.
+
+One quick report (100 captured calls per entry point, Cortex-M4 -O2) is made
+per session through the command; the replay is cached, so the other checks
+reuse it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import json
+
+import pytest
+
+from .support import needs_cross
+
+pytestmark = needs_cross
+
+STABLE_KEYS = (
+    "update_cycles_max", "update_cycles_median", "flash_bytes", "ram_static_bytes", "node_state_bytes",
+    "stack_bytes", "message_bytes_k4", "bit_exact_calls", "mismatched_calls", "target", "opt", "clock_mhz",
+    "entries", "message_bytes",
+)
+POSITIVE = ("update_cycles_max", "update_cycles_median", "flash_bytes", "node_state_bytes", "stack_bytes",
+            "message_bytes_k4", "bit_exact_calls", "inbox_bytes", "workspace_bytes", "stack_measured_bytes")
+
+
+def run_cli(argv: list[str]) -> tuple[int, str]:
+    from peerfix.cli import main
+
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        status = main(argv)
+    return status, out.getvalue()
+
+
+# A budget whose goal is not met and whose release limit holds: the command still succeeds.
+TEST_BUDGET = """config = "cortex-m4-O2"
+[targets]
+flash_bytes = { at_most = 1 }  # never met
+[release]
+mismatched_calls = { at_most = 0 }  # the hard rule
+"""
+
+
+@pytest.fixture(scope="module")
+def quick(tmp_path_factory):
+    out_dir = tmp_path_factory.mktemp("budget")
+    budget = out_dir / "test-budget.toml"
+    budget.write_text(TEST_BUDGET)
+    status, stdout = run_cli(["budget", "--quick", "--json", "--out", str(out_dir), "--budget", str(budget)])
+    return status, json.loads(stdout), out_dir
+
+
+def test_command_json_has_the_stable_keys(quick):
+    status, doc, out_dir = quick
+    assert status == 0
+    for key in STABLE_KEYS:
+        assert key in doc, key
+    assert (doc["target"], doc["opt"], doc["clock_mhz"]) == ("cortex-m4", "O2", 64.0)
+    for key in POSITIVE:
+        assert doc[key] > 0, key
+    assert doc["ram_static_bytes"] >= 0
+    # the written file is the printed document
+    assert json.loads((out_dir / "budget.json").read_text()) == doc
+
+
+def test_targets_report_but_release_limits_fail(quick, tmp_path):
+    status, doc, _ = quick
+    assert status == 0  # a goal not met does not fail the command
+    b = doc["budget"]
+    assert b["applies"] and b["targets_met"] is False and b["release_ok"] is True
+    assert b["targets"] == [{"key": "flash_bytes", "bound": "at_most", "limit": 1, "value": doc["flash_bytes"],
+                             "ok": False}]
+    tight = tmp_path / "tight.toml"
+    tight.write_text(TEST_BUDGET.replace("mismatched_calls = { at_most = 0 }", "flash_bytes = { at_most = 1 }"))
+    status, stdout = run_cli(["budget", "--quick", "--budget", str(tight)])  # replay cached
+    assert status == 1
+    assert "| release | flash_bytes |" in stdout and "EXCEEDED" in stdout and "NOT MET" in stdout
+    other = tmp_path / "other.toml"
+    other.write_text(TEST_BUDGET.replace('config = "cortex-m4-O2"', 'config = "cortex-m0plus-Os"')
+                     .replace("mismatched_calls = { at_most = 0 }", "flash_bytes = { at_most = 1 }"))
+    status, stdout = run_cli(["budget", "--quick", "--budget", str(other)])
+    assert status == 0 and "not applied to cortex-m4-O2" in stdout  # a budget is for its own build only
+
+
+def test_every_captured_call_is_replayed_bit_exact(quick):
+    from peerfix.budget.capture import ENTRY_POINTS, capture
+    from peerfix.budget.report import QUICK_CALLS, QUICK_HEADLINE
+
+    _, doc, _ = quick
+    captured = capture(QUICK_CALLS, QUICK_HEADLINE)
+    assert doc["captured_calls"] == len(captured) >= QUICK_CALLS * len(ENTRY_POINTS)
+    assert doc["bit_exact_calls"] >= len(captured)
+    assert doc["mismatched_calls"] == 0 and doc["mismatches"] == []
+    assert set(doc["entries"]) == set(ENTRY_POINTS)
+    for name, entry in doc["entries"].items():
+        assert entry["calls"] >= QUICK_CALLS and entry["bit_exact"] == entry["calls"], name
+        assert sum(c["calls"] for c in entry["configs"]) == entry["calls"], name
+
+
+def test_figures_hang_together(quick):
+    _, doc, _ = quick
+    clock = doc["clock_mhz"]
+    assert doc["update_calls"] >= 20  # the headline bucket gets its share first
+    assert doc["update_cycles_max"] >= doc["update_cycles_median"] > 0
+    assert doc["update_cycles_max_any"] >= doc["update_cycles_max"]
+    for name, e in doc["entries"].items():
+        # every Cortex-M4 instruction takes at least one cycle in the model
+        assert e["cycles_max"] >= e["instructions_max"] > 0, name
+        assert e["time_max_us"] == pytest.approx(e["cycles_max"] / clock, abs=0.05), name
+        # the measured high-water mark never exceeds the static worst case
+        assert 0 < e["stack_measured_bytes"] <= e["stack_static_bytes"], name
+    assert doc["stack_bytes"] == max(e["stack_static_bytes"] for e in doc["entries"].values())
+    update = doc["entries"]["pfx_node_update"]
+    headline = [c for c in update["configs"] if (c["neighbours"], c["K"]) == (12, 4)]
+    assert len(headline) == 1 and headline[0]["cycles_max"] == doc["update_cycles_max"]
+    assert headline[0]["calls"] == doc["update_calls"]
+    # the caller-owned structs as the host's cffi lays them out (the layout test checks every field)
+    from peerfix.core._pfx import ffi
+
+    assert doc["node_state_bytes"] == ffi.sizeof("pfx_node_t")
+    assert doc["workspace_bytes"] == ffi.sizeof("pfx_workspace_t")
+
+
+def test_message_bytes_per_k(quick):
+    """13 + 8 K bytes: the frame layout of docs/wire-format.md (11 header + 8 per component + 2 check)."""
+    _, doc, _ = quick
+    assert doc["message_bytes"] == {str(k): 13 + 8 * k for k in range(1, 9)}
+    assert doc["message_bytes_k4"] == 45
+
+
+def test_markdown_states_the_estimate(quick):
+    from peerfix.budget.timing import CORTEX_M4
+
+    _, doc, out_dir = quick
+    md = (out_dir / "budget.md").read_text()
+    assert "ESTIMATE" in md and CORTEX_M4.source in md
+    for left_out in ("wait states", "caches", "bus contention", "interrupts"):
+        assert left_out in md
+    assert "### pfx_node_update by neighbours and K" in md
+    assert f"{doc['flash_bytes']:,} B" in md
+
+
+def test_clock_scales_times_not_cycles(quick):
+    from peerfix.budget.build import TargetConfig
+    from peerfix.budget.report import budget_report
+
+    _, doc, _ = quick
+    fast = budget_report(TargetConfig("cortex-m4", "O2"), clock_mhz=128.0, quick=True)  # replay cached
+    assert fast["update_cycles_max"] == doc["update_cycles_max"]
+    assert fast["update_time_max_us"] == pytest.approx(doc["update_time_max_us"] / 2, abs=0.1)
+
+
+def test_a_corrupted_host_result_is_a_mismatch():
+    """Flip one byte of a captured expected output: the replay must report it."""
+    from peerfix.budget.build import TargetConfig
+    from peerfix.budget.capture import capture
+    from peerfix.budget.report import budget_report
+
+    captured = capture(10, 1)
+    good = [c for calls in captured.calls.values() for c in calls[:2]]
+    frame = next(c for c in captured.calls["pfx_wire_encode"] if c.status == 0)
+    node = min(captured.calls["pfx_node_update"], key=lambda c: c.config["neighbours"])
+    bad = [frame.corrupted(output=0, offset=5), node.corrupted(output=0, offset=300)]
+    doc = budget_report(TargetConfig("cortex-m4", "O2"), calls=good + bad)
+    assert doc["mismatched_calls"] == 2
+    assert doc["bit_exact_calls"] == len(good)
+    listed = {m["entry"]: m for m in doc["mismatches"]}
+    assert set(listed) == {"pfx_wire_encode", "pfx_node_update"}
+    assert "offset 5" in listed["pfx_wire_encode"]["problems"][0]
+    assert "offset 300" in listed["pfx_node_update"]["problems"][0]
+
+
+def test_command_fails_on_a_mismatch(monkeypatch, tmp_path):
+    import peerfix.budget.report as report
+    from peerfix.budget.capture import capture
+
+    captured = capture(10, 1)
+    call = captured.calls["pfx_wire_decode"][0]
+    monkeypatch.setattr(report, "capture", lambda *a, **kw: [call, call.corrupted(output=0, offset=0)])
+    status, stdout = run_cli(["budget", "--quick", "--out", str(tmp_path)])
+    assert status == 1
+    assert "MISMATCHES: 1 calls differ" in stdout
+    assert json.loads((tmp_path / "budget.json").read_text())["mismatched_calls"] == 1
+
+
+def test_full_capture_covers_every_update_configuration():
+    """The scenario runs give updates with 1..16 heard broadcasts at every K = 1..8,
+    1000 calls per entry point, and at least 50 in the headline bucket (12, K = 4)."""
+    from peerfix.budget.capture import ENTRY_POINTS, HEADLINE_BUCKET, capture
+
+    full = capture(1000, 50)
+    buckets = {c.bucket for c in full.calls["pfx_node_update"]}
+    assert buckets >= {(("neighbours", n), ("K", k)) for n in range(1, 17) for k in range(1, 9)}
+    assert sum(c.bucket == HEADLINE_BUCKET for c in full.calls["pfx_node_update"]) >= 50
+    for entry in ENTRY_POINTS:
+        assert len(full.calls[entry]) >= 1000, entry
+    # a smaller selection is part of the larger one (quick figures never exceed the full ones' calls)
+    quick_calls = set(capture(100, 20).all_calls())
+    assert quick_calls <= set(full.all_calls())
