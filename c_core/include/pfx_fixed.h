@@ -194,6 +194,41 @@ int32_t pfx_fixed_exp2_q_sat(pfx_log2_q16_t x, unsigned frac_bits);
 
 /* PFX_CDEF_END */
 
+/* pfx_fixed_clz32 as an inline function, for hot loops in other modules
+ * (outside the binding).  Portable binary search: five tests, no CLZ
+ * instruction, no table; -DPFX_USE_BUILTIN_CLZ: the compiler's builtin. */
+static inline unsigned pfx_fixed_clz32_inline(uint32_t x)
+{
+#if defined(PFX_USE_BUILTIN_CLZ)
+    return (x == 0u) ? 32u : (unsigned)__builtin_clz((unsigned int)x);
+#else
+    unsigned n = 0u;
+    if (x == 0u) {
+        return 32u;
+    }
+    if ((x & UINT32_C(0xFFFF0000)) == 0u) {
+        n += 16u;
+        x <<= 16;
+    }
+    if ((x & UINT32_C(0xFF000000)) == 0u) {
+        n += 8u;
+        x <<= 8;
+    }
+    if ((x & UINT32_C(0xF0000000)) == 0u) {
+        n += 4u;
+        x <<= 4;
+    }
+    if ((x & UINT32_C(0xC0000000)) == 0u) {
+        n += 2u;
+        x <<= 2;
+    }
+    if ((x & UINT32_C(0x80000000)) == 0u) {
+        n += 1u;
+    }
+    return n;
+#endif
+}
+
 #ifdef __cplusplus
 }
 #endif

@@ -190,45 +190,11 @@ uint64_t pfx_mixture_rsqrt_q30(uint64_t m);
 
 /* ---- inline arithmetic of the hot loops (same rules as pfx_fixed) ---- */
 
-/* Leading zeros: pfx_fixed_clz32 / pfx_fixed_clz64 inlined (the same
- * portable binary search, or the compiler's builtin with
- * PFX_USE_BUILTIN_CLZ, as pfx_fixed.c chooses). */
-static inline unsigned pfx_mixture_clz32(uint32_t x)
-{
-#if defined(PFX_USE_BUILTIN_CLZ)
-    return (x == 0u) ? 32u : (unsigned)__builtin_clz((unsigned int)x);
-#else
-    unsigned n = 0u;
-    if (x == 0u) {
-        return 32u;
-    }
-    if ((x & UINT32_C(0xFFFF0000)) == 0u) {
-        n += 16u;
-        x <<= 16;
-    }
-    if ((x & UINT32_C(0xFF000000)) == 0u) {
-        n += 8u;
-        x <<= 8;
-    }
-    if ((x & UINT32_C(0xF0000000)) == 0u) {
-        n += 4u;
-        x <<= 4;
-    }
-    if ((x & UINT32_C(0xC0000000)) == 0u) {
-        n += 2u;
-        x <<= 2;
-    }
-    if ((x & UINT32_C(0x80000000)) == 0u) {
-        n += 1u;
-    }
-    return n;
-#endif
-}
-
+/* Leading zeros of 64 bits, inlined for the hot loops (pfx_fixed_clz32_inline). */
 static inline unsigned pfx_mixture_clz64(uint64_t x)
 {
     uint32_t hi = (uint32_t)(x >> 32);
-    return (hi != 0u) ? pfx_mixture_clz32(hi) : 32u + pfx_mixture_clz32((uint32_t)x);
+    return (hi != 0u) ? pfx_fixed_clz32_inline(hi) : 32u + pfx_fixed_clz32_inline((uint32_t)x);
 }
 
 /* floor(x / 2^s), any s: pfx_fixed_shr64_floor, inlined.  With m all ones

@@ -189,35 +189,7 @@ typedef char pfx_clz_width_check[(sizeof(unsigned int) == 4u && sizeof(unsigned 
 
 unsigned pfx_fixed_clz32(uint32_t x)
 {
-#if defined(PFX_USE_BUILTIN_CLZ)
-    return (x == 0u) ? 32u : (unsigned)__builtin_clz((unsigned int)x);
-#else
-    /* Binary search: five tests, no CLZ instruction, no table. */
-    unsigned n = 0u;
-    if (x == 0u) {
-        return 32u;
-    }
-    if ((x & UINT32_C(0xFFFF0000)) == 0u) {
-        n += 16u;
-        x <<= 16;
-    }
-    if ((x & UINT32_C(0xFF000000)) == 0u) {
-        n += 8u;
-        x <<= 8;
-    }
-    if ((x & UINT32_C(0xF0000000)) == 0u) {
-        n += 4u;
-        x <<= 4;
-    }
-    if ((x & UINT32_C(0xC0000000)) == 0u) {
-        n += 2u;
-        x <<= 2;
-    }
-    if ((x & UINT32_C(0x80000000)) == 0u) {
-        n += 1u;
-    }
-    return n;
-#endif
+    return pfx_fixed_clz32_inline(x);
 }
 
 unsigned pfx_fixed_clz64(uint64_t x)
