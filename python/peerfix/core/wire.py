@@ -8,7 +8,6 @@ check that it and the C code agree on every byte.  Layout: docs/wire-format.md.
 
 from __future__ import annotations
 
-import math
 import struct
 from dataclasses import dataclass
 from decimal import ROUND_HALF_UP, Decimal, localcontext
