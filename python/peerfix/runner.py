@@ -57,7 +57,7 @@ class RunResult:
 
 def run_scenario(
     scenario: Scenario,
-    engine: str = "float",
+    engine="float",  # a name from ENGINES, or an engine object
     params: EstimatorParams | None = None,
     iterations: int = 4,
     schedule: str = "slot",
@@ -79,9 +79,10 @@ def run_scenario(
     if iterations < 1:
         raise ValueError("iterations must be at least 1")
     params = params or EstimatorParams()
-    eng = make_engine(engine, params, blocked_model(scenario, params), air)
+    # An engine name, or an engine object the caller built (e.g. one that records its calls).
+    eng = make_engine(engine, params, blocked_model(scenario, params), air) if isinstance(engine, str) else engine
     eng.start(scenario.site.bounds_m, scenario.anchor_positions(), scenario.agent_ids)
-    result = RunResult(scenario, engine, params, schedule, cooperative)
+    result = RunResult(scenario, eng.name, params, schedule, cooperative)
     epochs = scenario.ranges.epochs()
     total = len(epochs) * iterations
     done = 0

@@ -300,30 +300,17 @@ def with_epochs(scenario, epochs: int, step_s: float = 1.0):
 
 
 def run_and_record(run: Run, recorder: Recorder) -> None:
-    """One scenario run of the fixed engine, every entry-point call offered to recorder.
-
-    The loop of peerfix.runner.run_scenario (start, predict between epochs,
-    one epoch of the slot schedule), with the recording engine in place of
-    the one run_scenario would make."""
-    from peerfix.driver import run_epoch
-    from peerfix.network import epoch_links
+    """One scenario run of the fixed engine, every entry-point call offered to recorder
+    (peerfix.runner.run_scenario with the recording engine in place of its own)."""
     from peerfix.reference import EstimatorParams
-    from peerfix.runner import blocked_model
+    from peerfix.runner import blocked_model, run_scenario
     from peerfix.simulate import simulate
 
     scenario = with_epochs(simulate(run.preset, run.seed), run.epochs)
     params = EstimatorParams(max_components=run.K)
     recorder.source = run.name
     eng = CaptureEngine(recorder, params, blocked_model(scenario, params))
-    eng.start(scenario.site.bounds_m, scenario.anchor_positions(), scenario.agent_ids)
-    last_t = None
-    for t_s in scenario.ranges.epochs():
-        if last_t is not None:
-            for a in scenario.agent_ids:
-                eng.predict(a, float(t_s - last_t), PREDICT_Q_M2_PER_S)
-        links = epoch_links(scenario, float(t_s))
-        run_epoch(eng, scenario.agent_ids, scenario.anchor_ids, links, run.iterations, "slot", float(t_s))
-        last_t = t_s
+    run_scenario(scenario, eng, params, run.iterations, process_var_m2_per_s=PREDICT_Q_M2_PER_S, score=False)
 
 
 def record_predictions(recorder: Recorder, dt_ms: Iterable[int] = PREDICT_DT_MS) -> None:
