@@ -321,6 +321,14 @@ int32_t pfx_fixed_shr_round(int32_t x, unsigned s)
         return 0;
     }
     half = ((uint32_t)x >> (s - 1u)) & 1u;
+#if defined(PFX_VARIANT_TIES_DOWN)
+    /* Test-only variant (never in a release build): ties round toward
+     * -infinity instead of +infinity.  The release-regression tests build it
+     * to prove that `peerfix baseline check` notices a one-LSB change. */
+    if (half != 0u && ((uint32_t)x & ((UINT32_C(1) << (s - 1u)) - 1u)) == 0u) {
+        half = 0u;
+    }
+#endif
     return pfx_fixed_shr_floor(x, s) + (int32_t)half;
 }
 
