@@ -62,3 +62,45 @@ def test_unknown_param_is_refused(tmp_path):
     folder = make_folder(tmp_path)
     with pytest.raises(SystemExit, match="NAME=VALUE"):
         main(["run", str(folder), "--out", str(tmp_path / "o"), "--param", "nonsense=1"])
+
+
+def test_estimates_header_and_metrics_without_truth(tmp_path, capsys):
+    folder = make_folder(tmp_path, truth_csv=None)
+    out = tmp_path / "out"
+    assert main(["run", str(folder), "--out", str(out), "--iterations", "2"]) == 0
+    captured = capsys.readouterr()
+    assert "no truth to score" in captured.out
+    assert "log: 5 rows in 1 epochs (window 0 s); rules fired: none" in captured.err
+    with open(out / "estimates.csv") as f:
+        header = next(csv.reader(f))
+    # The documented columns, in order (docs/scenario-format.md, "Run outputs").
+    assert header == ["t_s", "node_id", "iteration", "x_m", "y_m", "cov_xx_m2", "cov_xy_m2", "cov_yy_m2", "mode_count", "components", "present"]
+    metrics = json.loads((out / "metrics.json").read_text())
+    assert metrics["epochs"] == [] and metrics["final"] == {}
+    assert metrics["log"]["rows_used"] == 5 and metrics["time"]["epochs"] == 1
+    assert metrics["latency"]["agents_heard"] == 2 and metrics["latency"]["agents_within_1m"] is None
+
+
+def test_time_options_reach_the_run(tmp_path, capsys):
+    ranges = (
+        "t_s,node_a,node_b,range_m\n"
+        "0.00,tag-07,ward-a1,10.02\n0.02,tag-07,ward-a3,13.43\n0.01,tag-12,ward-a2,16.60\n0.03,tag-12,ward-a3,8.47\n"
+        "1.00,tag-07,ward-a1,10.02\n1.01,tag-07,ward-a3,13.43\n1.02,tag-12,ward-a2,16.60\n1.00,tag-12,ward-a3,8.47\n"
+    )
+    folder = make_folder(tmp_path, ranges_csv=ranges, truth_csv=None)
+    out = tmp_path / "out"
+    args = ["run", str(folder), "--out", str(out), "--epoch-window-s", "0.05", "--walk-speed-mps", "1.2", "--silence-timeout-s", "5", "--fix-sd-m", "0.4"]
+    assert main(args) == 0
+    assert "jitter_grouped 5" in capsys.readouterr().err
+    metrics = json.loads((out / "metrics.json").read_text())
+    assert metrics["time"]["epochs"] == 2 and metrics["time"]["epoch_window_s"] == 0.05
+    assert metrics["time"]["motion"]["walk_speed_mps"] == 1.2 and metrics["time"]["silence_timeout_s"] == 5.0
+    assert metrics["latency"]["criterion"]["sd_max_m"] == 0.4
+    assert metrics["log"]["rules"]["jitter_grouped"]["lines"] == [3, 4, 5, 7, 8]
+
+
+@pytest.mark.parametrize("option", [["--epoch-window-s", "-1"], ["--walk-speed-mps", "nan"], ["--silence-timeout-s", "0"]])
+def test_bad_time_option_is_refused(tmp_path, option):
+    folder = make_folder(tmp_path)
+    with pytest.raises(SystemExit, match=option[0]):
+        main(["run", str(folder), "--out", str(tmp_path / "o"), *option])

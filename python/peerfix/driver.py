@@ -8,7 +8,11 @@ Two schedules:
 
 Slots go in the order of the scenario's agent list.  Anchors broadcast every
 iteration; an agent broadcasts only when its belief is informative
-(censoring is the engine's rule).
+(censoring is the engine's rule).  An agent that is not present in the epoch
+(no ranges: it left, or has not appeared yet) neither updates nor sends.
+
+What is on the air lives for one epoch: run_epoch builds its `air` table
+afresh, so no broadcast of an earlier epoch can reach a node.
 """
 
 from __future__ import annotations
@@ -46,6 +50,7 @@ class IterationRecord:
 class EpochRecord:
     t_s: float
     iterations: list[IterationRecord] = field(default_factory=list)
+    present: np.ndarray | None = None  # (N,) bool: agent took part (None: everyone)
 
 
 def run_epoch(
@@ -59,16 +64,21 @@ def run_epoch(
     keep_beliefs: bool = False,
     on_iteration=None,
     channel: Channel | None = None,
+    present=None,
 ) -> EpochRecord:
     """Run `iterations` rounds of the schedule; returns every agent's report per round.
 
     on_iteration(record) is called after each round (progress displays).
     channel: packet loss and bit errors between sender and receiver (None: ideal).
+    present: the agents that take part (None: all); the others neither update
+    nor broadcast, and the reports keep their last state.
     """
     if schedule not in SCHEDULES:
         raise ValueError(f"unknown schedule {schedule!r}; choose one of {', '.join(SCHEDULES)}")
-    record = EpochRecord(t_s)
-    # What each node last put on the air (None: censored, or never spoke this epoch).
+    wanted = None if present is None else set(present)
+    active = list(agent_ids) if wanted is None else [a for a in agent_ids if a in wanted]
+    record = EpochRecord(t_s, present=None if wanted is None else np.array([a in wanted for a in agent_ids]))
+    # What each node last put on the air in THIS epoch (None: censored, absent, or not yet spoken).
     air = {a: engine.broadcast(a) for a in anchor_ids}
     air.update({a: None for a in agent_ids})
     if channel is not None and channel.ideal:
@@ -79,12 +89,12 @@ def run_epoch(
         before = _counters(engine, channel)
         if schedule == "broadcast":
             # Everyone speaks once from last iteration's belief, then everyone listens.
-            for a in agent_ids:
+            for a in active:
                 air[a] = engine.broadcast(a)
-            for a in agent_ids:
+            for a in active:
                 engine.update(a, _inbox(links[a], air, channel))
         else:
-            for a in agent_ids:
+            for a in active:
                 engine.update(a, _inbox(links[a], air, channel))
                 air[a] = engine.broadcast(a)  # a's slot: it speaks right after updating
         for a in agent_ids:

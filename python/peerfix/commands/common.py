@@ -67,3 +67,64 @@ def estimator_params(args) -> EstimatorParams:
 def print_json(doc) -> None:
     json.dump(doc, sys.stdout, indent=2)
     sys.stdout.write("\n")
+
+
+def add_time_options(p: argparse.ArgumentParser) -> None:
+    """Time rules for logs with many epochs (docs/scenario-format.md, "Time and epochs");
+    each overrides the scenario's [tracking] value."""
+    p.add_argument("--epoch-window-s", type=float, default=None, metavar="S", help="stamps within S of an epoch's first stamp share the epoch (default: site, else 0 = exact t_s)")
+    p.add_argument("--walk-speed-mps", type=float, default=None, metavar="V", help="how fast a tag may move between epochs (default: site, else a fixed random walk of 1 m^2/s)")
+    p.add_argument("--silence-timeout-s", type=float, default=None, metavar="S", help="a tag silent for longer than S starts again from the prior (default: site, else 10 s)")
+    p.add_argument("--fix-sd-m", type=float, default=None, metavar="M", help="first-fix criterion: sd of the dominant mode at most M (default 0.5 m)")
+
+
+def time_options(args) -> dict:
+    """run_scenario keyword arguments from add_time_options; bad values exit with a message."""
+    for name, low, inclusive in (("epoch_window_s", 0.0, True), ("walk_speed_mps", 0.0, True), ("silence_timeout_s", 0.0, False), ("fix_sd_m", 0.0, False)):
+        value = getattr(args, name)
+        if value is None:
+            continue
+        ok = value == value and value != float("inf") and (value >= low if inclusive else value > low)
+        if not ok:
+            flag = "--" + name.replace("_", "-")
+            raise SystemExit(f"peerfix: error: {flag} must be a finite number {'>=' if inclusive else '>'} {low:g}, found {value!r}")
+    kw = {name: getattr(args, name) for name in ("epoch_window_s", "walk_speed_mps", "silence_timeout_s")}
+    if args.fix_sd_m is not None:
+        kw["fix_sd_m"] = args.fix_sd_m
+    return kw
+
+
+def add_log_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--set-aside-bad-rows",
+        action="store_true",
+        help="skip malformed ranges.csv rows (bad number, unknown node, negative range, ...) instead of stopping; they are counted and listed by reason with their lines",
+    )
+
+
+def log_summary_lines(doc: dict, shown: int = 10) -> list[str]:
+    """Human lines about the log (rules fired, rows set aside) and the first fixes, from a metrics document."""
+    log = doc.get("log") or {}
+    lines = []
+    if log:
+        fired = {k: v for k, v in log["rules"].items() if v["count"]}
+        rules = ", ".join(f"{k} {v['count']}" for k, v in fired.items()) or "none"
+        lines.append(f"log: {log['rows_used']} rows in {log['epochs']} epochs (window {log['epoch_window_s']:g} s); rules fired: {rules}")
+        for reason, entry in log["set_aside"].items():
+            shown_lines = ", ".join(str(n) for n in entry["lines"][:shown])
+            more = f" and {entry['count'] - shown} more" if entry["count"] > shown else ""
+            lines.append(f"set aside: {entry['count']} row(s), {reason}, line(s) {shown_lines}{more}")
+    lat = doc.get("latency") or {}
+    if lat and lat.get("agents_heard"):
+        text = f"first fix: {lat['agents_fixed']}/{lat['agents_heard']} agents"
+        if lat["latency_median_s"] is not None:
+            text += f", latency median {lat['latency_median_s']:.3f} s, max {lat['latency_max_s']:.3f} s"
+        if lat.get("agents_within_1m") is not None:
+            text += f"; within 1 m: {lat['agents_within_1m']}"
+            if lat["latency_within_1m_median_s"] is not None:
+                text += f", median {lat['latency_within_1m_median_s']:.3f} s"
+        lines.append(text)
+    time = doc.get("time") or {}
+    if time.get("resets_total"):
+        lines.append(f"resets to the prior: {time['resets_total']} (silence timeout {time['silence_timeout_s']:g} s, or spread beyond the site)")
+    return lines

@@ -2,11 +2,22 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 from ..runner import ENGINES, run_scenario, write_outputs
 from ..scenario import read_scenario
-from .common import add_air_options, add_estimator_options, channel_from, estimator_params, print_json
+from .common import (
+    add_air_options,
+    add_estimator_options,
+    add_log_options,
+    add_time_options,
+    channel_from,
+    estimator_params,
+    log_summary_lines,
+    print_json,
+    time_options,
+)
 
 
 def register(sub) -> None:
@@ -17,6 +28,8 @@ def register(sub) -> None:
     p.add_argument("--json", action="store_true", help="print the final-iteration summary as JSON")
     add_estimator_options(p)
     add_air_options(p)
+    add_time_options(p)
+    add_log_options(p)
     p.set_defaults(handler=handle)
 
 
@@ -25,7 +38,9 @@ def handle(args) -> int:
     channel = channel_from(args)
     if channel.bit_error_rate and (args.engine != "fixed" or args.no_air):
         raise SystemExit("peerfix: error: --bit-error-rate needs frames on the air (--engine fixed without --no-air)")
-    scenario = read_scenario(args.scenario)  # strict: raises InputError before anything is written
+    timing = time_options(args)
+    # Strict unless asked: raises InputError before anything is written.
+    scenario = read_scenario(args.scenario, set_aside_bad_rows=args.set_aside_bad_rows)
     result = run_scenario(
         scenario,
         engine=args.engine,
@@ -35,11 +50,25 @@ def handle(args) -> int:
         cooperative=not args.no_coop,
         air=not args.no_air,
         channel=channel,
+        **timing,
     )
     doc = write_outputs(result, args.out)
     final = doc.get("final", {})
+    for line in log_summary_lines(doc):
+        print(line, file=sys.stderr)
     if args.json:
-        print_json({"engine": doc["engine"], "schedule": doc["schedule"], "cooperative": doc["cooperative"], **final})
+        log = doc["log"]
+        print_json(
+            {
+                "engine": doc["engine"],
+                "schedule": doc["schedule"],
+                "cooperative": doc["cooperative"],
+                **final,
+                "log_rules": {k: v["count"] for k, v in log["rules"].items()},
+                "set_aside": {k: v["count"] for k, v in log["set_aside"].items()},
+                "latency": {k: v for k, v in doc["latency"].items() if k != "agents"},
+            }
+        )
     elif final:
         print(
             f"{scenario.site.name}: {final['n_agents']} agents, iteration {final['iteration']}: "

@@ -41,11 +41,30 @@ class RangingModel:
 
 
 @dataclass(frozen=True)
+class Tracking:
+    """How a log becomes epochs and how tags move between them ([tracking] in site.toml).
+
+    None means "not stated here": the run's option or its default applies
+    (see docs/scenario-format.md, "Time and epochs").
+    epoch_window_s:    stamps within this window of an epoch's first stamp share the epoch.
+    walk_speed_mps:    how fast a tag may move; sets the random-walk prediction.
+    silence_timeout_s: a tag silent for longer than this starts again from the prior.
+    """
+
+    epoch_window_s: float | None = None
+    walk_speed_mps: float | None = None
+    silence_timeout_s: float | None = None
+
+
+@dataclass(frozen=True)
 class Site:
     name: str
     bounds_m: tuple[float, float, float, float]  # xmin, ymin, xmax, ymax
     ranging: RangingModel
     extra: dict[str, Any] = field(default_factory=dict)  # further site.toml tables, kept verbatim
+    # Height of the tags' antennas, in the frame of anchors.csv z_m (None: not stated).
+    tag_height_m: float | None = None
+    tracking: Tracking = field(default_factory=Tracking)
 
     @property
     def width_m(self) -> float:
@@ -81,6 +100,16 @@ class RangeTable:
         return np.unique(self.t_s)
 
 
+@dataclass(frozen=True)
+class SetAsideRow:
+    """A malformed ranges.csv row skipped on request: where, why, and the reader's message."""
+
+    line: int
+    field: str | None
+    reason: str  # a short code, e.g. "nan", "negative_range" (docs/scenario-format.md)
+    message: str
+
+
 @dataclass
 class Truth:
     """True positions: one row per node and epoch."""
@@ -108,6 +137,10 @@ class Scenario:
     # one entry per anchor / agent in the order of anchor_ids / agent_ids.
     anchor_extra: dict[str, list[str]] = field(default_factory=dict)
     agent_extra: dict[str, list[str]] = field(default_factory=dict)
+    # Mounting height of each anchor (anchors.csv z_m), or None when the file has no z_m.
+    anchor_z_m: np.ndarray | None = None
+    # ranges.csv rows the reader set aside (only with set_aside_bad_rows=True), in file order.
+    set_aside: list[SetAsideRow] = field(default_factory=list)
 
     def anchor_positions(self) -> dict[str, np.ndarray]:
         return {a: self.anchor_xy_m[i] for i, a in enumerate(self.anchor_ids)}

@@ -22,7 +22,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from ..errors import InputError
-from .model import RangeTable, RangingModel, Scenario, Site, Truth
+from .model import RangeTable, RangingModel, Scenario, SetAsideRow, Site, Tracking, Truth
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -36,11 +36,14 @@ RANGES_FILE = "ranges.csv"
 TRUTH_FILE = "truth.csv"
 
 ANCHOR_COLUMNS = ("node_id", "x_m", "y_m")
+ANCHOR_Z_COLUMN = "z_m"  # optional: mounting height (see "Anchors mounted high")
 AGENT_COLUMNS = ("node_id",)
 RANGE_COLUMNS = ("t_s", "node_a", "node_b", "range_m")
 TRUTH_COLUMNS = ("t_s", "node_id", "x_m", "y_m")
 
-SITE_KEYS = ("name", "bounds_m")
+SITE_KEYS = ("name", "bounds_m", "tag_height_m")
+TRACKING_KEYS = ("epoch_window_s", "walk_speed_mps", "silence_timeout_s")
+CHECKED_TABLES = ("site", "ranging", "tracking")
 RANGING_REQUIRED = ("sigma_m", "radio_range_m")
 RANGING_OPTIONAL = ("sigma_per_m", "blocked_probability", "blocked_bias_mean_m", "max_range_m")
 
@@ -48,8 +51,14 @@ RANGING_OPTIONAL = ("sigma_per_m", "blocked_probability", "blocked_bias_mean_m",
 _DECIMAL = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
 
 
-def read_scenario(folder: str | Path) -> Scenario:
-    """Read and validate a scenario folder; raise InputError at the first bad value."""
+def read_scenario(folder: str | Path, *, set_aside_bad_rows: bool = False) -> Scenario:
+    """Read and validate a scenario folder; raise InputError at the first bad value.
+
+    set_aside_bad_rows=True: a malformed ranges.csv row (bad number, bad node,
+    negative or absurd range, wrong field count, blank line) is skipped instead
+    and listed in Scenario.set_aside with its line, field and reason.  Every
+    other file stays strict.
+    """
     folder = Path(folder)
     if not folder.exists():
         raise InputError(folder, 0, None, "scenario folder not found")
@@ -57,8 +66,14 @@ def read_scenario(folder: str | Path) -> Scenario:
         raise InputError(folder, 0, None, "not a folder; a scenario is a folder of files")
 
     site = _read_site(_required_file(folder / SITE_FILE))
-    anchor_ids, anchor_xy, anchor_extra = _read_anchors(_required_file(folder / ANCHORS_FILE))
+    anchors_path = _required_file(folder / ANCHORS_FILE)
+    anchor_ids, anchor_xy, anchor_z, anchor_extra = _read_anchors(anchors_path)
     anchor_set = set(anchor_ids)
+    if anchor_z is not None and site.tag_height_m is None:
+        raise InputError(
+            anchors_path, 1, ANCHOR_Z_COLUMN,
+            f"anchors carry z_m but {SITE_FILE} [site] states no tag_height_m; slant ranges cannot be reduced without it",
+        )
 
     agent_ids: list[str] | None = None
     agent_extra: dict[str, list[str]] = {}
@@ -76,7 +91,8 @@ def read_scenario(folder: str | Path) -> Scenario:
 
     ranges_path = _required_file(folder / RANGES_FILE)
     declared = None if agent_ids is None else set(agent_ids)
-    ranges = _read_ranges(ranges_path, site.ranging, anchor_set, declared)
+    set_aside: list[SetAsideRow] | None = [] if set_aside_bad_rows else None
+    ranges = _read_ranges(ranges_path, site.ranging, anchor_set, declared, set_aside)
     if agent_ids is None:
         # Agent-set rule, last choice: every non-anchor id seen in ranges.csv.
         agent_ids = _first_seen(_interleave(ranges.node_a, ranges.node_b), anchor_set)
@@ -90,6 +106,8 @@ def read_scenario(folder: str | Path) -> Scenario:
         truth=truth,
         anchor_extra=anchor_extra,
         agent_extra=agent_extra,
+        anchor_z_m=anchor_z,
+        set_aside=set_aside or [],
     )
 
 
@@ -175,6 +193,8 @@ def _read_site(path: Path) -> Site:
     ranging_table = _toml_table(doc, "ranging", fail)
     _reject_unknown_keys(site_table, "site", SITE_KEYS, fail)
     _reject_unknown_keys(ranging_table, "ranging", RANGING_REQUIRED + RANGING_OPTIONAL, fail)
+    tracking_table = _toml_table(doc, "tracking", fail) if "tracking" in doc else {}
+    _reject_unknown_keys(tracking_table, "tracking", TRACKING_KEYS, fail)
 
     if "name" not in site_table:
         raise fail(("site", "name"), "required key is missing")
@@ -182,6 +202,9 @@ def _read_site(path: Path) -> Site:
     if not isinstance(name, str) or not name.strip():
         raise fail(("site", "name"), "must be a non-empty string")
     bounds = _bounds(site_table, fail)
+    tag_height = None
+    if "tag_height_m" in site_table:
+        tag_height = _toml_number(site_table["tag_height_m"], ("site", "tag_height_m"), fail)
 
     def number(key: str, check: str, default: float | None = None) -> float | None:
         if key not in ranging_table:
@@ -206,8 +229,23 @@ def _read_site(path: Path) -> Site:
         blocked_bias_mean_m=number("blocked_bias_mean_m", "positive", defaults.blocked_bias_mean_m),
         max_range_m=number("max_range_m", "positive", defaults.max_range_m),
     )
-    extra = {key: value for key, value in doc.items() if key not in ("site", "ranging")}
-    return Site(name=name, bounds_m=bounds, ranging=ranging, extra=extra)
+    def tracking_number(key: str, check: str) -> float | None:
+        if key not in tracking_table:
+            return None
+        value = _toml_number(tracking_table[key], ("tracking", key), fail)
+        if check == "positive" and not value > 0:
+            raise fail(("tracking", key), f"must be greater than 0, found {value!r}")
+        if check == "non-negative" and not value >= 0:
+            raise fail(("tracking", key), f"must be 0 or more, found {value!r}")
+        return value
+
+    tracking = Tracking(
+        epoch_window_s=tracking_number("epoch_window_s", "non-negative"),
+        walk_speed_mps=tracking_number("walk_speed_mps", "non-negative"),
+        silence_timeout_s=tracking_number("silence_timeout_s", "positive"),
+    )
+    extra = {key: value for key, value in doc.items() if key not in CHECKED_TABLES}
+    return Site(name=name, bounds_m=bounds, ranging=ranging, extra=extra, tag_height_m=tag_height, tracking=tracking)
 
 
 def _toml_table(doc: dict[str, Any], key: str, fail) -> dict[str, Any]:
@@ -296,7 +334,8 @@ def _is_blank(row: list[str]) -> bool:
     return not row or (len(row) == 1 and not row[0].strip())
 
 
-def _read_table(path: Path, required: Sequence[str]) -> _Table:
+def _read_table(path: Path, required: Sequence[str], set_aside: list[SetAsideRow] | None = None) -> _Table:
+    """set_aside: a list to put blank or wrongly sized rows in instead of raising (ranges.csv only)."""
     text = _read_text(path)
     reader = csv.reader(io.StringIO(text, newline=""), strict=True)
     records: list[tuple[int, list[str]]] = []
@@ -329,19 +368,31 @@ def _read_table(path: Path, required: Sequence[str]) -> _Table:
     for i, (line, row) in enumerate(body):
         if _is_blank(row):
             if i < last:
-                raise InputError(path, line, None, "blank line inside the table (only trailing blank lines are allowed)")
+                message = "blank line inside the table (only trailing blank lines are allowed)"
+                if set_aside is None:
+                    raise InputError(path, line, None, message)
+                set_aside.append(SetAsideRow(line, None, "blank_line", message))
             continue
         if len(row) != len(columns):
-            raise InputError(path, line, None, f"expected {len(columns)} fields as in the header, found {len(row)}")
+            message = f"expected {len(columns)} fields as in the header, found {len(row)}"
+            if set_aside is None:
+                raise InputError(path, line, None, message)
+            set_aside.append(SetAsideRow(line, None, "wrong_field_count", message))
+            continue
         rows.append((line, row))
     return _Table(path=path, columns=columns, rows=rows, required=required)
 
 
-def _read_anchors(path: Path) -> tuple[list[str], np.ndarray, dict[str, list[str]]]:
+def _read_anchors(path: Path) -> tuple[list[str], np.ndarray, np.ndarray | None, dict[str, list[str]]]:
     table = _read_table(path, ANCHOR_COLUMNS)
+    has_z = ANCHOR_Z_COLUMN in table.columns
+    if has_z:
+        # z_m is read as a number, not kept as a text extra.
+        table.required = (*ANCHOR_COLUMNS, ANCHOR_Z_COLUMN)
     ids: list[str] = []
     first_line: dict[str, int] = {}
     xy = np.zeros((len(table.rows), 2))
+    z = np.zeros(len(table.rows)) if has_z else None
     for k, (line, row) in enumerate(table.rows):
         node = table.node_id(line, row, "node_id")
         if node in first_line:
@@ -349,7 +400,9 @@ def _read_anchors(path: Path) -> tuple[list[str], np.ndarray, dict[str, list[str
         first_line[node] = line
         ids.append(node)
         xy[k] = (table.number(line, row, "x_m"), table.number(line, row, "y_m"))
-    return ids, xy, table.extra()
+        if z is not None:
+            z[k] = table.number(line, row, ANCHOR_Z_COLUMN)
+    return ids, xy, z, table.extra()
 
 
 def _read_agents(path: Path, anchors: set[str]) -> tuple[list[str], dict[str, list[str]]]:
@@ -387,37 +440,94 @@ def _read_truth(path: Path, anchors: set[str], agents: set[str] | None) -> Truth
     return Truth(t_s=t_s, node_id=ids, xy_m=xy, extra=table.extra())
 
 
-def _read_ranges(path: Path, ranging: RangingModel, anchors: set[str], agents: set[str] | None) -> RangeTable:
-    table = _read_table(path, RANGE_COLUMNS)
+class _BadRow(InputError):
+    """A row-level problem in ranges.csv, with its reason code for the set-aside report."""
+
+    def __init__(self, err: InputError, reason: str):
+        super().__init__(err.path, err.line, err.field, err.message)
+        self.reason = reason
+
+
+def _number_reason(text: str) -> str:
+    """Why a field is not a finite decimal: 'nan', 'infinite' or 'not_a_number'."""
+    word = text.strip().lower().lstrip("+-")
+    if word == "nan":
+        return "nan"
+    if word in ("inf", "infinity") or _DECIMAL.fullmatch(text.strip()):
+        return "infinite"  # a plain decimal only fails by overflowing, e.g. 1e999
+    return "not_a_number"
+
+
+def _read_ranges(
+    path: Path,
+    ranging: RangingModel,
+    anchors: set[str],
+    agents: set[str] | None,
+    set_aside: list[SetAsideRow] | None = None,
+) -> RangeTable:
+    table = _read_table(path, RANGE_COLUMNS, set_aside)
     limit_m = ranging.absurd_range_limit_m()
-    n = len(table.rows)
-    t_s, range_m, lines = np.zeros(n), np.zeros(n), np.zeros(n, dtype=np.int64)
-    node_a: list[str] = []
-    node_b: list[str] = []
+
+    def number(line: int, row: list[str], column: str) -> float:
+        try:
+            return table.number(line, row, column)
+        except InputError as err:
+            raise _BadRow(err, _number_reason(row[table.index(column)])) from None
 
     def known(line: int, row: list[str], column: str) -> str:
-        node = table.node_id(line, row, column)
+        try:
+            node = table.node_id(line, row, column)
+        except InputError as err:
+            raise _BadRow(err, "empty_node_id") from None
         if agents is not None and node not in anchors and node not in agents:
-            raise table.error(line, column, f"unknown node '{node}': not an anchor and not a declared agent")
+            raise _BadRow(table.error(line, column, f"unknown node '{node}': not an anchor and not a declared agent"), "unknown_node")
         return node
 
+    def bad(line: int, column: str, reason: str, message: str) -> _BadRow:
+        return _BadRow(table.error(line, column, message), reason)
+
+    kept: list[int] = []
+    t_s: list[float] = []
+    range_m: list[float] = []
+    lines: list[int] = []
+    node_a: list[str] = []
+    node_b: list[str] = []
     for k, (line, row) in enumerate(table.rows):
-        t = table.number(line, row, "t_s")
-        a = known(line, row, "node_a")
-        b = known(line, row, "node_b")
-        if a == b:
-            raise table.error(line, "node_b", f"a node cannot range to itself ('{a}')")
-        if a in anchors and b in anchors:
-            raise table.error(line, "node_b", f"range between two anchors ('{a}', '{b}'); anchors are fixed and known")
-        r = table.number(line, row, "range_m")
-        if r < 0:
-            raise table.error(line, "range_m", f"negative range {r!r}")
-        if r > limit_m:
-            raise table.error(line, "range_m", f"absurd range {r!r} m, above the limit of {limit_m!r} m")
-        t_s[k], range_m[k], lines[k] = t, r, line
+        try:
+            t = number(line, row, "t_s")
+            a = known(line, row, "node_a")
+            b = known(line, row, "node_b")
+            if a == b:
+                raise bad(line, "node_b", "self_range", f"a node cannot range to itself ('{a}')")
+            if a in anchors and b in anchors:
+                raise bad(line, "node_b", "anchor_to_anchor", f"range between two anchors ('{a}', '{b}'); anchors are fixed and known")
+            r = number(line, row, "range_m")
+            if r < 0:
+                raise bad(line, "range_m", "negative_range", f"negative range {r!r}")
+            if r > limit_m:
+                raise bad(line, "range_m", "absurd_range", f"absurd range {r!r} m, above the limit of {limit_m!r} m")
+        except _BadRow as err:
+            if set_aside is None:
+                raise InputError(err.path, err.line, err.field, err.message) from None
+            set_aside.append(SetAsideRow(err.line, err.field, err.reason, err.message))
+            continue
+        kept.append(k)
+        t_s.append(t)
+        range_m.append(r)
+        lines.append(line)
         node_a.append(a)
         node_b.append(b)
-    return RangeTable(t_s=t_s, node_a=node_a, node_b=node_b, range_m=range_m, extra=table.extra(), line=lines)
+    extra = {name: [values[k] for k in kept] for name, values in table.extra().items()}
+    if set_aside is not None:
+        set_aside.sort(key=lambda row: row.line)  # table-level and row-level problems, in file order
+    return RangeTable(
+        t_s=np.array(t_s, dtype=float),
+        node_a=node_a,
+        node_b=node_b,
+        range_m=np.array(range_m, dtype=float),
+        extra=extra,
+        line=np.array(lines, dtype=np.int64),
+    )
 
 
 # --------------------------------------------------------------------------- agent set

@@ -10,6 +10,7 @@ existing target is untouched.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import os
 import secrets
 import shutil
@@ -25,7 +26,9 @@ from .reader import (
     AGENT_COLUMNS,
     AGENTS_FILE,
     ANCHOR_COLUMNS,
+    ANCHOR_Z_COLUMN,
     ANCHORS_FILE,
+    CHECKED_TABLES,
     RANGE_COLUMNS,
     RANGES_FILE,
     SITE_FILE,
@@ -107,8 +110,13 @@ def _check_shapes(s: Scenario) -> None:
                 raise ValueError(f"{where}[{name!r}] has {len(values)} values, expected {n}")
             if not all(isinstance(v, str) for v in values):
                 raise ValueError(f"{where}[{name!r}] must hold str values (extra columns are text)")
-    if "site" in s.site.extra or "ranging" in s.site.extra:
-        raise ValueError("site.extra must not hold 'site' or 'ranging'; those come from Site itself")
+    if any(name in s.site.extra for name in CHECKED_TABLES):
+        raise ValueError(f"site.extra must not hold {', '.join(CHECKED_TABLES)}; those come from Site itself")
+    if s.anchor_z_m is not None:
+        if np.shape(s.anchor_z_m) != (len(s.anchor_ids),):
+            raise ValueError(f"anchor_z_m must have shape ({len(s.anchor_ids)},), has {np.shape(s.anchor_z_m)}")
+        if ANCHOR_Z_COLUMN in s.anchor_extra:
+            raise ValueError("anchor_extra must not hold z_m when anchor_z_m is set")
 
 
 def _read_back(staging: Path, target: Path) -> None:
@@ -140,11 +148,14 @@ def _write_files(s: Scenario, out: Path) -> None:
     }
     if ranging.max_range_m is not None:
         ranging_doc["max_range_m"] = float(ranging.max_range_m)
-    doc = {
-        "site": {"name": site.name, "bounds_m": [float(v) for v in site.bounds_m]},
-        "ranging": ranging_doc,
-        **site.extra,
-    }
+    site_doc: dict[str, Any] = {"name": site.name, "bounds_m": [float(v) for v in site.bounds_m]}
+    if site.tag_height_m is not None:
+        site_doc["tag_height_m"] = float(site.tag_height_m)
+    doc: dict[str, Any] = {"site": site_doc, "ranging": ranging_doc}
+    tracking = {k: float(v) for k, v in dataclasses.asdict(site.tracking).items() if v is not None}
+    if tracking:
+        doc["tracking"] = tracking
+    doc.update(site.extra)
     try:
         text = tomli_w.dumps(doc)
     except TypeError as err:
@@ -152,11 +163,15 @@ def _write_files(s: Scenario, out: Path) -> None:
     (out / SITE_FILE).write_text(text, encoding="utf-8")
 
     xy = np.asarray(s.anchor_xy_m, dtype=float)
+    z = None if s.anchor_z_m is None else np.asarray(s.anchor_z_m, dtype=float)
     _write_csv(
         out / ANCHORS_FILE,
-        ANCHOR_COLUMNS,
+        ANCHOR_COLUMNS if z is None else (*ANCHOR_COLUMNS, ANCHOR_Z_COLUMN),
         s.anchor_extra,
-        ([node, _num(xy[i, 0]), _num(xy[i, 1])] for i, node in enumerate(s.anchor_ids)),
+        (
+            [node, _num(xy[i, 0]), _num(xy[i, 1]), *([] if z is None else [_num(z[i])])]
+            for i, node in enumerate(s.anchor_ids)
+        ),
     )
     _write_csv(out / AGENTS_FILE, AGENT_COLUMNS, s.agent_extra, ([node] for node in s.agent_ids))
     r = s.ranges
