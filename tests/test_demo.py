@@ -1,7 +1,9 @@
 """`peerfix demo` and the report package: files, numbers, pictures, and the point of the tool.
 
-The full demo (cold-store, seed 2, 6 iterations) runs once per module (about
-8 s); the CLI test uses 2 iterations to stay fast.
+The full static demo (cold-store, the demo's default seed, 6 iterations) runs once per module
+(about 8 s) with a 10 s moving part (the float twin over its first 4 s, in
+this process); the CLI test uses 2 iterations and a 4 s moving part with the
+float twin in a second process, to stay fast.
 """
 
 from __future__ import annotations
@@ -17,11 +19,12 @@ import pytest
 from scipy.stats import chi2, multivariate_normal
 
 from peerfix.cli import main
+from peerfix.report.demo import DEFAULT_SEED
 from peerfix.driver import IterationRecord
 from peerfix.reference import Mixture
 from peerfix.report import RUNS, run_demo
 from peerfix.report.belief import mass_levels, mixture_density, pick_agent, window_m
-from peerfix.report.demo import PICTURES
+from peerfix.report.demo import PICTURES, TRACK_PICTURES
 from peerfix.report.plots import ellipse_95
 from peerfix.scenario import read_scenario
 from peerfix.simulate import simulate, summarize
@@ -38,8 +41,11 @@ METRE_TOL = 0.5e-3 + 1e-12
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo")
-    summary = run_demo(out, progress=False)
+    summary = run_demo(out, progress=False, moving_duration_s=MOVING_S, float_duration_s=FLOAT_S, parallel=False)
     return out, summary
+
+
+MOVING_S, FLOAT_S = 10.0, 4.0
 
 
 def _metrics(out: Path, name: str) -> dict:
@@ -98,7 +104,45 @@ def test_demo_writes_report_pictures_scenario_and_runs(demo):
 def test_scenario_folder_reads_back_as_the_simulated_scenario(demo):
     out, _ = demo
     back = read_scenario(out / "scenario")
-    assert_scenarios_equal(back, simulate("cold-store", seed=2), lines=False)
+    assert_scenarios_equal(back, simulate("cold-store", seed=DEFAULT_SEED), lines=False)
+
+
+def test_demo_writes_the_moving_part(demo):
+    out, summary = demo
+    moving = summary["moving"]
+    assert moving["epochs"] == MOVING_S * 5 and moving["float_epochs"] == FLOAT_S * 5
+    assert moving["iterations_per_epoch"] == 1
+    assert_scenarios_equal(read_scenario(out / "moving" / "scenario"),
+                           simulate("cold-store-shift", seed=DEFAULT_SEED, duration_s=MOVING_S), lines=False)
+    for engine, epochs in (("fixed", MOVING_S * 5), ("float", FLOAT_S * 5)):
+        run = out / "moving" / "runs" / engine
+        with open(run / "estimates.csv") as f:
+            assert sum(1 for _ in f) == 1 + epochs * moving["agents"]
+        doc = json.loads((run / "metrics.json").read_text())
+        assert doc["engine"] == engine and doc["iterations"] == 1
+    for name in TRACK_PICTURES.values():
+        assert (out / name).read_bytes()[:8] == PNG_MAGIC
+        img = mpimg.imread(out / name)
+        assert np.mean(img[..., :3] < 0.99) > 0.02, name  # not a blank canvas
+    # The issue's limits hold on this slice too.
+    assert moving["rmse_ratio"] <= 1.3 and moving["difference"]["median_m"] <= 0.02
+    assert moving["targets"]["rmse_ratio_met"] and moving["targets"]["median_difference_met"]
+
+
+def test_report_moving_section_equals_the_summary(demo):
+    out, summary = demo
+    text = (out / "report.md").read_text()
+    assert text.index("## Moving tags") < text.index("## Reproduce") and text.count("## Reproduce") == 1
+    rows = {r[0]: r[1:] for r in _table(text, f"Moving tags: cold-store-shift, seed {DEFAULT_SEED}")}
+    m = summary["moving"]
+    assert _close(rows["RMSE (m)"][0], m["fixed"]["whole"]["rmse_m"])
+    assert _close(rows["RMSE (m)"][1], m["fixed"]["head"]["rmse_m"])
+    assert _close(rows["RMSE (m)"][2], m["float"]["head"]["rmse_m"])
+    assert _close(rows["RMSE fixed / float"][1], m["rmse_ratio"])
+    assert float(rows["median distance fixed to float (m)"][1]) == pytest.approx(m["difference"]["median_m"], abs=0.5e-4)
+    assert "met" in rows["RMSE fixed / float"][3] and "1 iteration per epoch" in text
+    assert "--moving-duration-s 10 --float-duration-s 4" in text
+    assert "tracks.png" in text and "error_over_time.png" in text
 
 
 def test_existing_scenario_folder_is_refused_without_overwrite(demo):
@@ -151,7 +195,7 @@ def test_report_site_paragraph_states_the_blocked_share(demo):
     share = summarize(read_scenario(out / "scenario"))["blocked_share"]
     assert abs(float(m.group(1)) / 100 - share) <= SHARE_TOL
     assert "36 racks" in text  # cold_store_racks_m: 9 double racks x 2 halves x 2 single racks
-    assert "peerfix demo --out" in text and "--seed 2" in text
+    assert "peerfix demo --out" in text and f"--seed {DEFAULT_SEED}" in text
     assert "not a certified safety function" in text
 
 
@@ -186,15 +230,21 @@ def test_belief_agent_is_ambiguous_with_anchors_and_resolved(demo):
 
 def test_cli_json_prints_the_summary(tmp_path, capsys):
     out = tmp_path / "d"
-    assert main(["demo", "--out", str(out), "--iterations", "2", "--quiet", "--json"]) == 0
+    tiny = ["--moving-duration-s", "4", "--float-duration-s", "2"]
+    assert main(["demo", "--out", str(out), "--iterations", "2", "--quiet", "--json", *tiny]) == 0
     doc = json.loads(capsys.readouterr().out)
+    assert doc["moving"]["epochs"] == 20 and doc["moving"]["float"]["parallel"] in (True, False)
+    assert (out / "moving" / "runs" / "float" / "estimates.csv").stat().st_size > 0
     assert set(doc["runs"]) == {r.name for r in RUNS}
     for r in RUNS:
         assert doc["runs"][r.name]["fraction_within_1m"] == _metrics(out, r.name)["final"]["fraction_within_1m"]
         assert doc["runs"][r.name]["iteration"] == 2
     # A second run into the same folder is refused (exit 2) unless --overwrite.
-    assert main(["demo", "--out", str(out), "--iterations", "2", "--quiet"]) == 2
+    assert main(["demo", "--out", str(out), "--iterations", "2", "--quiet", *tiny]) == 2
     assert "--overwrite" in capsys.readouterr().err
+    assert main(["demo", "--out", str(tmp_path / "e"), "--quiet", "--moving-duration-s", "4",
+                 "--float-duration-s", "5"]) == 2  # the float twin's part must fit in the recording
+    assert "float twin duration" in capsys.readouterr().err
 
 
 # --------------------------------------------------------------------------- pieces

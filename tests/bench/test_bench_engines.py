@@ -27,4 +27,6 @@ def _run(scenario, engine):
 def test_bench_open_field_4_iterations(benchmark, open_field, engine):
     result = benchmark.pedantic(_run, args=(open_field, engine), rounds=7, iterations=1, warmup_rounds=1)
     assert len(result.epochs[0].iterations) == 4
-    assert result.epochs[0].iterations[-1].messages_sent == len(open_field.agent_ids)
+    # Sanity, not speed: nearly every agent speaks (an agent whose heaviest mode
+    # stays wider than the censoring spread is rightly kept off the air).
+    assert result.epochs[0].iterations[-1].messages_sent >= 0.95 * len(open_field.agent_ids)

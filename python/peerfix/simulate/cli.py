@@ -6,6 +6,7 @@ import argparse
 import json
 import sys
 
+from .moving import MOVING_PRESETS
 from .presets import ANCHOR_RULES, DEPLOYMENTS, PRESETS
 
 # CLI option (argparse dest) -> SimulationSettings field, for plain overrides.
@@ -21,17 +22,20 @@ _OVERRIDES = {
     "grid_jitter_m": "grid_jitter_m",
     "strip_width_m": "strip_width_m",
     "strip_length_m": "strip_length_m",
+    "duration_s": "duration_s",
+    "rate_hz": "rate_hz",
 }
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
         "simulate",
-        help="simulate a static network and write it as a scenario folder",
-        description="Simulate a static network (one epoch) from a preset and a seed, "
-        "and write it as a scenario folder.  Same preset, overrides and seed give the same folder.",
+        help="simulate a network (static, or tags moving over time) and write it as a scenario folder",
+        description="Simulate a network from a preset and a seed and write it as a scenario folder: "
+        "a static preset gives one epoch, a moving preset (tags driving and walking, joining and leaving) "
+        "many.  Same preset, overrides and seed give the same folder.",
     )
-    p.add_argument("--preset", choices=list(PRESETS), help="demo site to start from")
+    p.add_argument("--preset", choices=[*PRESETS, *MOVING_PRESETS], help="demo site to start from")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--out", metavar="DIR", help="scenario folder to write")
     p.add_argument("--overwrite", action="store_true", help="replace an existing scenario folder")
@@ -52,6 +56,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     g.add_argument("--grid-jitter-m", type=float, metavar="X")
     g.add_argument("--strip-width-m", type=float, metavar="X")
     g.add_argument("--strip-length-m", type=float, metavar="X")
+    m = p.add_argument_group("overrides of a moving preset")
+    m.add_argument("--duration-s", type=float, metavar="T", help="length of the recording (s)")
+    m.add_argument("--rate-hz", type=float, metavar="F", help="ranging epochs per second")
     p.set_defaults(handler=run)
 
 
@@ -89,6 +96,14 @@ def overrides_from_args(args: argparse.Namespace) -> dict[str, object]:
 
 
 def summary_line(summary: dict, preset: str, seed: int, out: str) -> str:
+    if summary.get("epochs", 1) > 1:
+        roles = ", ".join(f"{n} {r}" for r, n in summary["roles"].items())
+        return (
+            f"{preset} seed {seed}: {summary['agents']} agents ({roles}), {summary['anchors']} anchors, "
+            f"{summary['epochs']} epochs over {summary['duration_s']:g} s, {summary['ranges']} ranges "
+            f"({summary['ranges_per_epoch']:.0f} per epoch), {summary['late_joiners']} joining late, "
+            f"{summary['early_leavers']} leaving early, {100 * summary['blocked_share']:.1f}% blocked -> {out}"
+        )
     return (
         f"{preset} seed {seed}: {summary['agents']} agents, {summary['anchors']} anchors, "
         f"{summary['ranges']} ranges, mean agent degree {summary['mean_agent_degree']:.1f}, "
@@ -99,7 +114,7 @@ def summary_line(summary: dict, preset: str, seed: int, out: str) -> str:
 
 def run(args: argparse.Namespace) -> int:
     if args.list_presets:
-        for name, settings in PRESETS.items():
+        for name, settings in [*PRESETS.items(), *MOVING_PRESETS.items()]:
             print(f"{name}: {settings.description}")
         return 0
     missing = [opt for opt, val in (("--preset", args.preset), ("--out", args.out)) if val is None]
