@@ -111,9 +111,14 @@ def make_ffibuilder() -> FFI:
         f"PEERFIX_CFLAGS={' '.join(extra_cflags)} PEERFIX_LDFLAGS={' '.join(extra_ldflags)} "
         f"PEERFIX_DEFINES={defines}"
     )
+    # The module also answers pfx_build_stamp(), so that a baseline records how
+    # the core it ran was built (python/peerfix/baseline/buildinfo.py).
+    builder.cdef("const char *pfx_build_stamp(void);")
+    c_stamp = stamp.replace("\\", "\\\\").replace('"', '\\"')
     builder.set_source(
         MODULE_NAME,
-        f"/* build: {stamp.replace('*/', '')} */\n#include \"peerfix.h\"\n",
+        f"/* build: {stamp.replace('*/', '')} */\n#include \"peerfix.h\"\n"
+        f'const char *pfx_build_stamp(void) {{ return "{c_stamp}"; }}\n',
         sources=[_relative(p) for p in sources],
         include_dirs=[_relative(INCLUDE)],
         define_macros=_defines(),
