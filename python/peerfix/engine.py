@@ -68,28 +68,9 @@ class Engine(Protocol):
         """
 
 
-def reset_to_prior(engine, agent_id: str, bounds_m) -> None:
-    """engine.reset(agent_id); for the two engines that predate reset(), the same by hand.
-
-    The fallback touches engine internals and goes once FloatEngine and
-    FixedEngine implement reset() themselves.
-    """
+def reset_to_prior(engine, agent_id: str, bounds_m=None) -> None:
+    """engine.reset(agent_id), with a clear error for an engine that lacks it."""
     reset = getattr(engine, "reset", None)
-    if reset is not None:
-        reset(agent_id)
-        return
-    from .reference.engine_float import FloatEngine
-
-    if isinstance(engine, FloatEngine):
-        engine.beliefs[agent_id] = None
-        engine.priors[agent_id] = None
-        return
-    try:
-        from .core.engine_fixed import FixedEngine, check, len_q
-    except ImportError:  # no compiled core: this cannot be a FixedEngine
-        FixedEngine = None
-    if FixedEngine is not None and isinstance(engine, FixedEngine):
-        bounds = engine.ffi.new("pfx_len_q10_t[4]", [len_q(b) for b in bounds_m])
-        check(engine.lib.pfx_node_init(engine.nodes[agent_id], engine.c_params, bounds), f"pfx_node_init({agent_id})")
-        return
-    raise TypeError(f"engine {getattr(engine, 'name', engine)!r} has no reset(agent_id); the Engine protocol needs it")
+    if reset is None:
+        raise TypeError(f"engine {getattr(engine, 'name', engine)!r} has no reset(agent_id); the Engine protocol needs it")
+    reset(agent_id)

@@ -124,6 +124,9 @@ def mixture_to_belief(m: Mixture | None):
     return b
 
 
+# Range/sigma conversions remembered between iterations of one epoch (cleared when full).
+LINK_CACHE_MAX = 4096
+
 class FixedEngine:
     name = "fixed"
 
@@ -162,6 +165,7 @@ class FixedEngine:
     def start(self, bounds_m, anchors, agent_ids):
         ffi, lib = self.ffi, self.lib
         bounds = ffi.new("pfx_len_q10_t[4]", [len_q(b) for b in bounds_m])
+        self._bounds = bounds  # kept for reset()
         # Sender ids on the air: anchors then agents, in scenario order (u16).
         self._ids = {n: i for i, n in enumerate([*anchors, *agent_ids])}
         self._sequence = {n: 0 for n in self._ids}
@@ -175,6 +179,10 @@ class FixedEngine:
             msg = ffi.new("pfx_belief_t *")
             check(lib.pfx_belief_point(msg, len_q(xy[0]), len_q(xy[1])), f"pfx_belief_point({a})")
             self.anchor_msgs[a] = self._encode(a, msg, lib.PFX_WIRE_FLAG_ANCHOR) if self.air else msg
+
+    def reset(self, agent_id: str) -> None:
+        """Back to the flat prior over the site: the node re-initialised, as start() left it."""
+        check(self.lib.pfx_node_init(self.nodes[agent_id], self.c_params, self._bounds), f"pfx_node_init({agent_id})")
 
     def _encode(self, sender: str, belief, flags: int = 0) -> bytes:
         seq = self._sequence[sender]
@@ -217,6 +225,8 @@ class FixedEngine:
             key = (m.range_m, m.sigma_m)
             q = cache.get(key)
             if q is None:  # links repeat every iteration: convert each once
+                if len(cache) >= LINK_CACHE_MAX:  # a long log never repeats a range: keep memory flat
+                    cache.clear()
                 q = cache[key] = (len_q(m.range_m), len_q(m.sigma_m))
             belief = self._receive(m.message) if self.air else m.message
             if belief is None:

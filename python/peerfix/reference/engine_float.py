@@ -31,6 +31,11 @@ class FloatEngine:
         self.beliefs = {a: None for a in agent_ids}
         self.priors = {a: None for a in agent_ids}
 
+    def reset(self, agent_id):
+        """Back to the flat prior over the site, as start() left the agent."""
+        self.beliefs[agent_id] = None
+        self.priors[agent_id] = None
+
     def broadcast(self, node_id):
         if node_id in self.anchors:
             return anchor_message(self.anchors[node_id])
