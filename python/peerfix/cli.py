@@ -21,8 +21,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"peerfix {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    from .commands import air, compare, demo, run
-    from .commands import budget
+    from .commands import air, baseline, budget, compare, demo, run, sweep
     from .simulate import cli as simulate_cli
 
     simulate_cli.register(sub)
@@ -31,6 +30,8 @@ def build_parser() -> argparse.ArgumentParser:
     air.register(sub)
     demo.register(sub)
     budget.register(sub)
+    baseline.register(sub)
+    sweep.register(sub)
     return parser
 
 
