@@ -80,6 +80,7 @@ fi
 # writes to fd 2 reach the terminal and the log.
 say "running pytest $* (LD_PRELOAD=$preload)"
 set +e
+OPENBLAS_NUM_THREADS=${OPENBLAS_NUM_THREADS:-1} \
 LD_PRELOAD="$preload" \
 ASAN_OPTIONS=detect_leaks=0 \
 UBSAN_OPTIONS=halt_on_error=1:print_stacktrace=1 \
