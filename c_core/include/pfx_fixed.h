@@ -194,6 +194,14 @@ int32_t pfx_fixed_exp2_q_sat(pfx_log2_q16_t x, unsigned frac_bits);
 
 /* PFX_CDEF_END */
 
+/* Keep a helper out of line where inlining would copy it many times
+ * (flash) for no gain in a cold path; no effect on any value. */
+#if defined(__GNUC__)
+#define PFX_NOINLINE __attribute__((noinline))
+#else
+#define PFX_NOINLINE
+#endif
+
 /* pfx_fixed_clz32 as an inline function, for hot loops in other modules
  * (outside the binding).  Portable binary search: five tests, no CLZ
  * instruction, no table; -DPFX_USE_BUILTIN_CLZ: the compiler's builtin. */

@@ -154,7 +154,8 @@ pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q
 pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_mixture_scratch_t *s);
 
 /* reference reduce_to without the hard cap (the stream buffer is the hard
- * cap): prune, gate merge when n > cap, Runnalls when still n > cap, normalise. */
+ * cap): prune, gate merge (always: a unimodal mixture folds to one component),
+ * Runnalls when still n > cap, normalise. */
 pfx_status_t pfx_mixture_reduce(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_log2_q16_t log2_ratio,
                                 pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s);
 
@@ -227,6 +228,12 @@ static inline int64_t pfx_mixture_shr_round(int64_t x, unsigned s)
     if (s > 63u) {
         return 0;
     }
+#if defined(PFX_VARIANT_TIES_DOWN)
+    /* Test-only variant (see pfx_fixed_shr_round): ties toward -infinity. */
+    if (((uint64_t)x & ((UINT64_C(1) << s) - 1u)) == (UINT64_C(1) << (s - 1u))) {
+        return pfx_mixture_shr_floor(x, s);
+    }
+#endif
     u = (uint64_t)x ^ (UINT64_C(1) << 63);
     v = u + (UINT64_C(1) << (s - 1u));
     if (v < u) {

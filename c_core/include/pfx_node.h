@@ -53,6 +53,7 @@ typedef struct {
     pfx_range_scratch_t range;          /* rings of the current neighbour, broad arcs */
     uint8_t order[PFX_MAX_NEIGHBOURS];  /* neighbours in update order */
     int32_t order_key[PFX_MAX_NEIGHBOURS]; /* their sort keys: -1 anchor, else lambda_max (Q20) */
+    pfx_belief_t message;               /* a one-mode neighbour's belief as one component */
 } pfx_workspace_t;
 
 /* One agent's state. */

@@ -48,8 +48,8 @@ typedef struct {
     pfx_len_q10_t ring_arc_spacing;     /* 1.0 m [1 LSB, 1024 m] */
     pfx_frac_q30_t arc_tangential_ratio;/* 0.6 [0, 1] */
     pfx_ratio_q16_t broad_window_sigmas;/* 4.0 (0, 64] */
-    pfx_ratio_q16_t broad_sagitta_ratio;/* 1.0 [0, 32768) */
-    pfx_ratio_q16_t merge_gate;         /* 1.0 (squared Mahalanobis) [0 = off, 32768) */
+    pfx_ratio_q16_t broad_sagitta_ratio;/* 4.0 [0, 32768) */
+    pfx_ratio_q16_t merge_gate;         /* 9.0 (squared Mahalanobis), every reduction [0 = off, 32768) */
     pfx_log2_q16_t prune_log2_ratio;    /* -9.21 / ln 2 = -13.2872 bits (the twin's default) [-24, 0] bits */
     pfx_ratio_q16_t broadcast_inflation;/* 2.0 (0, 32768) */
     pfx_len_q10_t censor_spread;        /* 2.0 m [0, 1024 m] */
@@ -58,8 +58,10 @@ typedef struct {
     pfx_frac_q30_t blocked_weight;      /* robust likelihood share; 0 = off [0, 1) */
     pfx_len_q10_t blocked_bias;         /* mean bias of a blocked range [0, max_range] */
     pfx_len_q10_t max_range;            /* a range above this is PFX_ERR_RANGE [1 LSB, 16384 m] */
-    pfx_ratio_q16_t product_gate;       /* 64.0: a compact product whose first squared normalised innovation
-                                           exceeds it keeps the one-step update [0 = off, 32768) */
+    pfx_ratio_q16_t product_gate;       /* 16.0: a pair whose ring passes farther than sqrt(gate) upper-bound
+                                           sigmas from the component is not formed; a compact product whose
+                                           first squared normalised innovation exceeds it keeps the one-step
+                                           update [0 = off, 32768) */
 } pfx_params_t;
 
 /* One ring message: N(r; ||x - c||, var), weight 2^log2w. */
@@ -119,8 +121,9 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
 
 /* Every product of work[0..n) with rings[0..nr) in the reference order
  * (component major, ring minor, broad expansions in place), streamed into
- * cand through the keep-heaviest buffer of p->candidate_cap; compact
- * products gated by p->product_gate (reference compact_update).  Products
+ * cand through the keep-heaviest buffer of p->candidate_cap; pairs whose
+ * ring passes far from the component (reference ring_gate) are not formed,
+ * compact products gated by p->product_gate (reference compact_update).  Products
  * that pfx_mixture_prune with p->prune_log2_ratio would drop anyway (below
  * the floor of the heaviest streamed before them) are left out: after that
  * prune the buffer is the same as with every product streamed. */

@@ -173,7 +173,7 @@ static int64_t mul64x32(int64_t a, int32_t b, unsigned s)
     if (s < 32u && (h >= (INT64_C(1) << (31u + s)) || h < -(INT64_C(1) << (31u + s)))) {
         return (h < 0) ? INT64_MIN : INT64_MAX;
     }
-    return pfx_fixed_add64_sat(h * (INT64_C(1) << (32u - s)), (int64_t)((ll + (UINT64_C(1) << (s - 1u))) >> s));
+    return pfx_mixture_add_sat(h * (INT64_C(1) << (32u - s)), (int64_t)((ll + (UINT64_C(1) << (s - 1u))) >> s));
 }
 
 /* Scaling: Qa * Qb >> s.  Overflow: the product is exact (two 32x32
@@ -502,11 +502,11 @@ static pfx_status_t moments_core(const pfx_component_t *c, const uint8_t *idx, u
         int64_t ex = pfx_mixture_offset(ref->x, ck->x) * 1024 - mx; /* Q20, |.| <= 2^41 */
         int64_t ey = pfx_mixture_offset(ref->y, ck->y) * 1024 - my;
         /* a * P <= 2^31 * 2^31; the spread term saturates on its own. */
-        sxx = pfx_fixed_add64_sat(pfx_fixed_add64_sat(sxx, a * ck->pxx),
+        sxx = pfx_mixture_add_sat(pfx_mixture_add_sat(sxx, a * ck->pxx),
                                   pfx_mixture_mul(a, pfx_mixture_mul(ex, ex, 20u), 0u));
-        sxy = pfx_fixed_add64_sat(pfx_fixed_add64_sat(sxy, a * ck->pxy),
+        sxy = pfx_mixture_add_sat(pfx_mixture_add_sat(sxy, a * ck->pxy),
                                   pfx_mixture_mul(a, pfx_mixture_mul(ex, ey, 20u), 0u));
-        syy = pfx_fixed_add64_sat(pfx_fixed_add64_sat(syy, a * ck->pyy),
+        syy = pfx_mixture_add_sat(pfx_mixture_add_sat(syy, a * ck->pyy),
                                   pfx_mixture_mul(a, pfx_mixture_mul(ey, ey, 20u), 0u));
     }
     out->x = pfx_mixture_sat32((int64_t)ref->x + pfx_mixture_shr_round(mx, 10u));
@@ -620,6 +620,14 @@ pfx_status_t pfx_mixture_stream_push(pfx_component_t *buf, uint32_t *count, uint
  * Rounding: one per mul64; the Q16 weight is within ~2 LSB of exact for
  * the given Q10/Q20 inputs.
  */
+/* round(a b / 2^s) + round(c d / 2^s), saturated: the pair of products of
+ * pfx_mixture_product_local, out of line (one copy of the inline multiply
+ * instead of one per product; the same values). */
+PFX_NOINLINE static int64_t dot2(int64_t a, int64_t b, int64_t c, int64_t d, unsigned s)
+{
+    return pfx_mixture_add_sat(pfx_mixture_mul(a, b, s), pfx_mixture_mul(c, d, s));
+}
+
 pfx_status_t pfx_mixture_product_local(const pfx_component_t *a, int64_t dx, int64_t dy, int32_t bxx, int32_t bxy,
                                        int32_t byy, int64_t extra_log2w, pfx_component_t *out)
 {
@@ -647,18 +655,18 @@ pfx_status_t pfx_mixture_product_local(const pfx_component_t *a, int64_t dx, int
     ixy = pfx_mixture_mul_recip(-sb, &rd, 50u);
     iyy = pfx_mixture_mul_recip(sa, &rd, 50u);
 
-    kxx = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxx, ixx, 20u), pfx_mixture_mul(a->pxy, ixy, 20u));
-    kxy = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxx, ixy, 20u), pfx_mixture_mul(a->pxy, iyy, 20u));
-    kyx = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxy, ixx, 20u), pfx_mixture_mul(a->pyy, ixy, 20u));
-    kyy = pfx_fixed_add64_sat(pfx_mixture_mul(a->pxy, ixy, 20u), pfx_mixture_mul(a->pyy, iyy, 20u));
+    kxx = dot2(a->pxx, ixx, a->pxy, ixy, 20u);
+    kxy = dot2(a->pxx, ixy, a->pxy, iyy, 20u);
+    kyx = dot2(a->pxy, ixx, a->pyy, ixy, 20u);
+    kyy = dot2(a->pxy, ixy, a->pyy, iyy, 20u);
 
-    mx = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, dx, 30u), pfx_mixture_mul(kxy, dy, 30u));
-    my = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, dx, 30u), pfx_mixture_mul(kyy, dy, 30u));
+    mx = dot2(kxx, dx, kxy, dy, 30u);
+    my = dot2(kyx, dx, kyy, dy, 30u);
 
-    qxx = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, bxx, 20u), pfx_mixture_mul(kxy, bxy, 20u));
-    qxy = pfx_fixed_add64_sat(pfx_mixture_mul(kxx, bxy, 20u), pfx_mixture_mul(kxy, byy, 20u));
-    qyx = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, bxx, 20u), pfx_mixture_mul(kyy, bxy, 20u));
-    qyy = pfx_fixed_add64_sat(pfx_mixture_mul(kyx, bxy, 20u), pfx_mixture_mul(kyy, byy, 20u));
+    qxx = dot2(kxx, bxx, kxy, bxy, 20u);
+    qxy = dot2(kxx, bxy, kxy, byy, 20u);
+    qyx = dot2(kyx, bxx, kyy, bxy, 20u);
+    qyy = dot2(kyx, bxy, kyy, byy, 20u);
     st = pfx_mixture_store_cov(pfx_mixture_shr_round(qxx, 10u),
                                pfx_mixture_shr_round(pfx_fixed_add64_sat(qxy, qyx), 11u),
                                pfx_mixture_shr_round(qyy, 10u), &res);
@@ -666,9 +674,9 @@ pfx_status_t pfx_mixture_product_local(const pfx_component_t *a, int64_t dx, int
         return st;
     }
 
-    vx = pfx_fixed_add64_sat(pfx_mixture_mul(ixx, dx, 20u), pfx_mixture_mul(ixy, dy, 20u));
-    vy = pfx_fixed_add64_sat(pfx_mixture_mul(ixy, dx, 20u), pfx_mixture_mul(iyy, dy, 20u));
-    q = pfx_fixed_add64_sat(pfx_mixture_mul(dx, vx, 34u), pfx_mixture_mul(dy, vy, 34u));
+    vx = dot2(ixx, dx, ixy, dy, 20u);
+    vy = dot2(ixy, dx, iyy, dy, 20u);
+    q = dot2(dx, vx, dy, vy, 34u);
     if (q < 0) {
         q = 0; /* only by rounding: S^-1 is positive definite */
     }
@@ -880,14 +888,40 @@ static int32_t logdet_of(const pfx_component_t *c)
  * (Q40 weights normalised to a total of 2^40, Q16 logs, each term >> 8:
  * |w log2det| <= 2^41 * 2^22 fits).  Twice Runnalls' B in bits; the
  * factor does not change the argmin. */
+/*
+ * Covariance of the moment-preserving merge of two components, for the cost
+ * only (the merge itself goes through moments_core): with fractions
+ * a = w_i / (w_i + w_j), 1 - a (Q30, one reciprocal) and d = mu_j - mu_i,
+ * P = a_i P_i + a_j P_j + a_i a_j d d^T (the spread form summed out).
+ * Scaling: a P in Q50 (<= 2^61 each), rounded once to Q20; a_i a_j in Q30;
+ * d d^T in Q20 (exact, <= 2^60), times a_i a_j >> 30 (one rounding, mul64
+ * when it leaves 32 bits); stored through pfx_mixture_store_cov.
+ */
+static pfx_status_t pair_merge_cov(const pfx_component_t *ci, const pfx_component_t *cj, int64_t wi, int64_t wj,
+                                   pfx_component_t *m)
+{
+    pfx_recip64_t r;
+    int64_t ai, aj, aij, dx, dy;
+    if (wi + wj <= 0 || pfx_mixture_recip64((uint64_t)(wi + wj), &r) != PFX_OK) {
+        return PFX_ERR_DEGENERATE;
+    }
+    ai = pfx_mixture_mul_recip(wi, &r, 30u);
+    aj = pfx_mixture_mul_recip(wj, &r, 30u);
+    aij = pfx_mixture_shr_round(ai * aj, 30u); /* <= 2^61 before the shift */
+    dx = pfx_mixture_offset(ci->x, cj->x);
+    dy = pfx_mixture_offset(ci->y, cj->y);
+    return pfx_mixture_store_cov(
+        pfx_mixture_add_sat(pfx_mixture_shr_round(ai * ci->pxx + aj * cj->pxx, 30u), pfx_mixture_mul(aij, dx * dx, 30u)),
+        pfx_mixture_add_sat(pfx_mixture_shr_round(ai * ci->pxy + aj * cj->pxy, 30u), pfx_mixture_mul(aij, dx * dy, 30u)),
+        pfx_mixture_add_sat(pfx_mixture_shr_round(ai * ci->pyy + aj * cj->pyy, 30u), pfx_mixture_mul(aij, dy * dy, 30u)),
+        m);
+}
+
 static uint32_t pair_cost(const pfx_component_t *c, const pfx_mixture_scratch_t *s, uint32_t i, uint32_t j)
 {
     pfx_component_t m;
-    uint8_t idx[2];
     int64_t b;
-    idx[0] = (uint8_t)i;
-    idx[1] = (uint8_t)j;
-    if (moments_core(c, idx, 2u, s->weight, 0, &m, NULL) != PFX_OK) {
+    if (pair_merge_cov(&c[i], &c[j], s->weight[i], s->weight[j], &m) != PFX_OK) {
         return UINT32_MAX - 1u; /* never chosen before a real pair */
     }
     b = pfx_mixture_mul(s->weight[i] + s->weight[j], logdet_of(&m), 8u);
@@ -1006,7 +1040,7 @@ pfx_status_t pfx_mixture_reduce(pfx_component_t *c, uint32_t *n, uint32_t cap, p
         return PFX_ERR_ARG;
     }
     st = pfx_mixture_prune(c, n, log2_ratio);
-    if (st == PFX_OK && *n > cap) {
+    if (st == PFX_OK && *n > 1u) {
         st = pfx_mixture_gate_merge(c, n, gate, s);
     }
     if (st == PFX_OK && *n > cap) {

@@ -19,15 +19,15 @@ void pfx_params_default(pfx_params_t *p)
     }
     memset(p, 0, sizeof(*p));
     p->max_components = 4u;
-    p->working_cap = 16u;
+    p->working_cap = 4u;
     p->candidate_cap = 64u;
     p->broad_max_arcs = 16u;
     p->iekf_iterations = 3u;
     p->ring_arc_spacing = 1024;              /* 1.0 m */
     p->arc_tangential_ratio = 644245094;     /* round(0.6 * 2^30) */
     p->broad_window_sigmas = 4 << 16;
-    p->broad_sagitta_ratio = 1 << 16;
-    p->merge_gate = 1 << 16;
+    p->broad_sagitta_ratio = 4 << 16;
+    p->merge_gate = 9 << 16;
     p->prune_log2_ratio = -870791;           /* round(-9.21 / ln 2 * 2^16): the twin's ln-ratio -9.21 */
     p->broadcast_inflation = 2 << 16;
     p->censor_spread = 2048;                 /* 2.0 m */
@@ -36,7 +36,7 @@ void pfx_params_default(pfx_params_t *p)
     p->blocked_weight = 0;
     p->blocked_bias = 1024;                  /* 1.0 m */
     p->max_range = 1024000;                  /* 1000 m */
-    p->product_gate = 64 << 16;              /* squared normalised innovation (8 sigma) */
+    p->product_gate = 16 << 16;              /* squared normalised innovation (4 sigma) */
 }
 
 pfx_status_t pfx_params_check(const pfx_params_t *p)
@@ -249,6 +249,28 @@ static pfx_status_t check_update_inputs(const pfx_node_t *node, const pfx_inbox_
     return PFX_OK;
 }
 
+/* The belief a message's rings are made of (reference message_belief): a
+ * neighbour whose belief reads off as one mode (pfx_mixture_point_estimate)
+ * counts as that mode, one component; otherwise every component is a ring. */
+static const pfx_belief_t *message_belief(const pfx_belief_t *b, const pfx_params_t *p, pfx_workspace_t *ws)
+{
+    pfx_estimate_t e;
+    pfx_component_t *m = &ws->message.comp[0];
+    if (b->count <= 1u ||
+        pfx_mixture_point_estimate(b->comp, b->count, p->mode_gate, p->mode_min_weight, &e) != PFX_OK ||
+        e.mode_count != 1u) {
+        return b;
+    }
+    ws->message.count = 1u;
+    m->log2w = 0;
+    m->x = e.x;
+    m->y = e.y;
+    m->pxx = e.pxx;
+    m->pxy = e.pxy;
+    m->pyy = e.pyy;
+    return &ws->message;
+}
+
 pfx_status_t pfx_node_update(pfx_node_t *node, const pfx_inbox_t *inbox, pfx_workspace_t *ws)
 {
     const pfx_params_t *p;
@@ -273,7 +295,8 @@ pfx_status_t pfx_node_update(pfx_node_t *node, const pfx_inbox_t *inbox, pfx_wor
         if (h->belief.count == 0u) {
             continue;
         }
-        st = pfx_range_rings(&h->belief, h->range, h->sigma, p, ws->range.ring, &ws->range.ring_count);
+        st = pfx_range_rings(message_belief(&h->belief, p, ws), h->range, h->sigma, p, ws->range.ring,
+                             &ws->range.ring_count);
         if (st != PFX_OK) {
             return st;
         }

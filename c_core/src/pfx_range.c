@@ -422,10 +422,13 @@ static int64_t innovation_log2lik(int64_t s, int64_t q)
  * pair is not relinearised: the result is the one-step update (what one
  * iteration gives).
  * Converged (reference step_tol_m): the loop stops when an iteration moves
- * e by at most tol (Q20): |step|^2 <= tol^2, exact (each component is
- * checked against tol <= 2^30 first, so the squares are at most 2^60).  tol = 0
- * stops only at a fixed point, where every further iteration would repeat
- * the last one bit for bit.
+ * e by at most tol (Q20), |step|^2 <= tol^2, or when the step is short
+ * against the ring, |step|^2 <= 2 rho tol (Q40; rho of that iteration's
+ * linearisation): relinearising after a step of length d moves the predicted
+ * range by about its sagitta d^2 / (2 rho), so the next step would be at most
+ * about tol.  Exact integer tests (each component is checked against 2^30
+ * first, so the squares are at most 2^61).  tol = 0 stops only at a fixed
+ * point, where every further iteration would repeat the last one bit for bit.
  * Floor: a product whose log2 weight (c + g + the likelihood, saturated to
  * int32 as stored) is below `floor` is not formed (COMPACT_BELOW_FLOOR);
  * INT64_MIN never drops.  The weight is known before the posterior, so a
@@ -436,7 +439,7 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
                                  pfx_component_t *out)
 {
     int64_t bx, by, ex = 0, ey = 0, rho, pred = 0, phx = 0, phy = 0, s = 0, gx = 0, gy = 0, innov = 0, q = -1;
-    int64_t qxx, qxy, qyy, log2w;
+    int64_t qxx, qxy, qyy, log2w, lim;
     int32_t hx, hy;
     uint32_t it;
     pfx_recip64_t rs;
@@ -448,6 +451,7 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
     if (iterations > 8u) {
         iterations = 8u;
     }
+    lim = (tol > 0) ? (INT64_C(1) << 30) : 0; /* the steps' squares then fit; tol = 0: fixed point only */
     bx = pfx_mixture_offset(g->cx, c->x) * 1024; /* Q20, |.| <= 2^40 */
     by = pfx_mixture_offset(g->cy, c->y) * 1024;
     for (it = 0u; it < iterations; ++it) {
@@ -484,8 +488,11 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
         sy = ny - ey;
         ex = nx;
         ey = ny;
-        if (sx >= -tol && sx <= tol && sy >= -tol && sy <= tol && sx * sx + sy * sy <= (int64_t)tol * tol) {
-            break; /* converged */
+        if (sx >= -lim && sx <= lim && sy >= -lim && sy <= lim) {
+            int64_t step2 = sx * sx + sy * sy; /* Q40, <= 2^61 */
+            if (step2 <= (int64_t)tol * tol || step2 <= pfx_mixture_mul(2 * (int64_t)tol, rho, 0u)) {
+                break; /* converged: the next step would be at most tol */
+            }
         }
     }
     if (q < 0) {
@@ -625,6 +632,30 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
     return broad_core(c, pfx_mixture_max_eig(c), g, p, out, n_out);
 }
 
+/*
+ * The ring gate (reference ring_gate): the ring passes more than sqrt(gate)
+ * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var +
+ * lambda_max), with rho = |mean - centre|.  No square root: with A = gate
+ * (var + lambda) (Q20) and num = r^2 + rho^2 - A,
+ *   (rho - r)^2 > A  <=>  num > 2 r rho  <=>  num > 0 and num^2 > 4 r^2 rho^2
+ * (exact, 128-bit).  r <= 2^24 (Q10), rho^2 <= 2^61, A < 2^63: no overflow.
+ * gate = 0: off.
+ */
+static int ring_far(const pfx_component_t *c, int32_t lam, const pfx_ring_t *g, pfx_ratio_q16_t gate)
+{
+    int64_t dx, dy, rho2, r, a, num;
+    if (gate <= 0) {
+        return 0;
+    }
+    dx = pfx_mixture_offset(g->cx, c->x);
+    dy = pfx_mixture_offset(g->cy, c->y);
+    rho2 = dx * dx + dy * dy;
+    r = g->radius < 0 ? 0 : g->radius;
+    a = pfx_mixture_mul(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
+    num = r * r + rho2 - a;
+    return num > 0 && pfx_mixture_cmp_products((uint64_t)num, (uint64_t)num, (uint64_t)(4 * r * r), (uint64_t)rho2) > 0;
+}
+
 /* Stream one product into the keep-heaviest buffer unless it is below the
  * floor; raise the floor with it.  best (int64) is the heaviest log2 weight
  * streamed so far (INT64_MIN: none), floor = best + prune_log2_ratio. */
@@ -679,7 +710,11 @@ pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const p
         for (q = 0u; q < nr; ++q) {
             const pfx_ring_t *g = &rings[q];
             lin_t l;
-            int broad = near_centre(c, lam, g);
+            int broad;
+            if (ring_far(c, lam, g, p->product_gate)) {
+                continue; /* nothing of weight: the ring passes far from the component */
+            }
+            broad = near_centre(c, lam, g);
             if (!broad) {
                 first_lin(c, g, &l);
                 broad = bends(c, &l, s->bend_limit[q]);

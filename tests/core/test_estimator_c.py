@@ -574,14 +574,15 @@ def multiply_c(work: Mixture, rings, nr: int, pc):
 
 
 def test_multiply_gates_pairs_far_off_the_ring():
-    # One compact pair per call (no earlier product: nothing is left out).  Far
-    # off the ring (first squared normalised innovation beyond the gate) the
-    # product is the one-iteration update bit for bit; near it, the twin's
-    # relinearised update.
+    # One compact pair per call (no earlier product: nothing is left out).
+    # Beyond the ring gate (the ring farther than sqrt(gate) upper-bound
+    # sigmas from the mean) no product is formed; far off the ring (first
+    # squared normalised innovation beyond the gate) the product is the
+    # one-iteration update bit for bit; near it, the twin's relinearised update.
     rng = np.random.default_rng(21)
     pc = params_c()
     one_step = ffi.new("pfx_component_t *")
-    far = near = 0
+    far = near = dropped = 0
     for _ in range(800):
         c = quantised(Mixture.single(rng.uniform(0, 40, 2), random_cov(rng, rng.uniform(0.001, 0.3))))
         centre = rng.uniform(0, 40, 2)
@@ -593,7 +594,16 @@ def test_multiply_gates_pairs_far_off_the_ring():
         h = (c.mean[0] - cen) / np.linalg.norm(c.mean[0] - cen)
         nis = (rad - np.linalg.norm(c.mean[0] - cen)) ** 2 / (h @ c.cov[0] @ h + var)
         cand, n = multiply_c(c, g, 1, pc)
-        if nis > 1.01 * PARAMS.product_gate_sigma2:
+        lam = float(np.linalg.eigvalsh(c.cov[0])[-1])
+        reach2 = (rad - np.linalg.norm(c.mean[0] - cen)) ** 2 / (var + lam)  # the ring gate's statistic
+        if reach2 > 1.01 * PARAMS.product_gate_sigma2:
+            dropped += 1
+            assert n[0] == 0
+            assert not R.ring_gate(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]),
+                                   PARAMS.product_gate_sigma2)[0]  # fmt: skip
+        elif reach2 > 0.99 * PARAMS.product_gate_sigma2:
+            continue  # at the ring gate: rounding decides
+        elif nis > 1.01 * PARAMS.product_gate_sigma2:
             far += 1
             assert lib.pfx_range_compact(to_c(c), g, 1, one_step) == OK
             assert n[0] == 1 and bytes(ffi.buffer(cand, 24)) == bytes(ffi.buffer(one_step))
@@ -605,7 +615,7 @@ def test_multiply_gates_pairs_far_off_the_ring():
             np.testing.assert_allclose(got.mean[0], x[0], atol=MEAN_M)
             np.testing.assert_allclose(got.cov[0], p[0], atol=COMPACT_COV_REL * np.abs(p[0]).max())
             assert abs(got.logw[0] - ll[0]) <= PRODUCT_LOGW + LOGW_REL * abs(ll[0])
-    assert far > 80 and near > 80  # both sides of the gate exercised
+    assert far > 40 and near > 80 and dropped > 80  # every side of both gates exercised
 
 
 def test_multiply_leaves_out_only_what_pruning_drops():
@@ -964,3 +974,44 @@ def test_worst_case_stack_below_1k_on_cortex_m4(opt, tmp_path):
     # Library helpers (memcpy, 64-bit divide) are not in the graph: 128 bytes are reserved for them.
     deepest = max(worst(f) for f in size if f.startswith("pfx_"))
     assert deepest + 128 < 1024, deepest
+
+
+def test_one_mode_neighbour_counts_as_its_read_off_mode():
+    # A neighbour whose belief reads off as one mode makes one ring: the update
+    # is bit for bit the update with that neighbour's broadcast replaced by its
+    # point estimate (pfx_mixture_point_estimate) as one component; a two-mode
+    # neighbour keeps one ring per component (the substitute then differs).
+    rng = np.random.default_rng(31)
+    ws = ffi.new("pfx_workspace_t *")
+    est = ffi.new("pfx_estimate_t *")
+    same = differ = 0
+    for _ in range(60):
+        truth = rng.uniform(10, 30, 2)
+        anchors = [rng.uniform(0, 40, 2) for _ in range(3)]
+        pos = truth + rng.normal(0, 6, 2)
+        spread = 0.05 if rng.random() < 0.5 else 8.0  # one mode, or two far apart
+        nb = quantised(Mixture(np.log([0.6, 0.4]), np.array([pos, pos + rng.normal(0, spread, 2)]),
+                               np.array([np.eye(2) * 0.02, np.eye(2) * 0.03])))  # fmt: skip
+        nb_c = belief_c(nb)
+        pc = params_c()
+        assert lib.pfx_mixture_point_estimate(nb_c.comp, nb_c.count, pc.mode_gate, pc.mode_min_weight,
+                                              est) == OK  # fmt: skip
+        sub = ffi.new("pfx_belief_t *")
+        sub.count = 1
+        sub.comp[0].x, sub.comp[0].y = est.x, est.y
+        sub.comp[0].pxx, sub.comp[0].pxy, sub.comp[0].pyy = est.pxx, est.pxy, est.pyy
+        beliefs = []
+        for msg in (nb_c, sub):
+            node, inbox = make_node(), ffi.new("pfx_inbox_t *")
+            for a in anchors:
+                anc = belief_c(N.anchor_message(a))
+                assert lib.pfx_inbox_add(inbox, anc, rq(np.linalg.norm(truth - a), 10), 102, 1) == OK
+            assert lib.pfx_inbox_add(inbox, msg, rq(np.linalg.norm(truth - pos), 10), 102, 0) == OK
+            assert lib.pfx_node_update(node, inbox, ws) == OK
+            beliefs.append(bytes(ffi.buffer(ffi.addressof(node.belief))))
+        if est.mode_count == 1:
+            same += 1
+            assert beliefs[0] == beliefs[1]
+        elif beliefs[0] != beliefs[1]:
+            differ += 1
+    assert same > 20 and differ >= 3  # measured 31 and 6 of 60

@@ -17,6 +17,7 @@ from peerfix.reference.node import (
     Received,
     anchor_message,
     is_informative,
+    message_belief,
     order_for_update,
     outgoing,
     predict,
@@ -229,17 +230,23 @@ def test_agent_neighbour_resolves_two_anchor_ambiguity():
 
 
 def test_robust_likelihood_keeps_blocked_range_from_breaking_fix():
-    # Four anchors, one range blocked (+1.5 m).  The plain likelihood is
-    # pulled off (measured 0.71 m); the two-ring likelihood (blocked share
-    # 0.1, bias 1 m) lands near the truth (measured 0.03 m).
+    # Four anchors, one range blocked (+1.5 m, 15 sigma).  The plain
+    # likelihood's ring gate leaves that range out once the other anchors fix
+    # the tag (measured 4 mm off; before the ring gate it was pulled 0.71 m
+    # off); the two-ring likelihood (blocked share 0.1, bias 1 m) uses it
+    # through its wide blocked ring and stays within a few sigmas of the truth
+    # (measured 0.21 m).
     anchors = [(0.0, 0.0), (20.0, 0.0), (20.0, 20.0), (0.0, 20.0)]
     truth = np.array([6.0, 8.0])
     noise = np.array([0.0, 0.0, 1.5, 0.0])
     inbox = anchor_inbox(truth, anchors, noise)
     plain = read_estimate(update(None, inbox, BOX, PARAMS), BOX, PARAMS)
     robust = read_estimate(update(None, inbox, BOX, PARAMS, BlockedModel(0.1, 1.0)), BOX, PARAMS)
-    assert np.linalg.norm(plain.mean - truth) > 0.3
-    assert np.linalg.norm(robust.mean - truth) < 0.15
+    assert np.linalg.norm(plain.mean - truth) < 0.05
+    assert np.linalg.norm(robust.mean - truth) < 0.3
+    # Without the gate the plain likelihood is pulled off by the blocked range.
+    ungated = read_estimate(update(None, inbox, BOX, PARAMS.replace(product_gate_sigma2=0.0)), BOX, PARAMS)
+    assert np.linalg.norm(ungated.mean - truth) > 0.3
 
 
 def test_at_most_max_neighbours_used_most_informative_first():
@@ -247,7 +254,9 @@ def test_at_most_max_neighbours_used_most_informative_first():
     # the order, so with max_neighbours = 3 it must not be used at all.
     truth = np.array([8.0, 6.0])
     liar = outgoing(Mixture.single([18.0, 18.0], 0.5 * np.eye(2)), PARAMS)
-    inbox = [Received("tag-x", liar, 2.0, SIGMA, False)] + anchor_inbox(truth, THREE_ANCHORS)
+    # 1.5 m too long: wrong, yet inside the ring gate (4 x 1.005 m upper-bound sigma)
+    wrong = float(np.linalg.norm(truth - np.array([18.0, 18.0]))) + 1.5
+    inbox = [Received("tag-x", liar, wrong, SIGMA, False)] + anchor_inbox(truth, THREE_ANCHORS)
     capped = PARAMS.replace(max_neighbours=3)
     a = update(None, inbox, BOX, capped)
     b = update(None, inbox[1:], BOX, capped)
@@ -255,3 +264,19 @@ def test_at_most_max_neighbours_used_most_informative_first():
     np.testing.assert_array_equal(a.logw, b.logw)
     # With room for it, the wrong range does change the belief.
     assert not np.array_equal(update(None, inbox, BOX, PARAMS).mean, b.mean)
+
+
+def test_message_of_a_one_mode_neighbour_is_its_read_off_mode():
+    # Two components 0.1 m apart (one mode under the 3-sigma gate): one
+    # component with the mode's moments (peerfix.reference.mixture.moments);
+    # two components 8 m apart are two modes: every component stays a ring.
+    one = Mixture(np.log([0.6, 0.4]), np.array([[5.0, 5.0], [5.1, 5.0]]), np.array([np.eye(2) * 0.02] * 2))
+    got = message_belief(one, PARAMS)
+    mean, cov = moments(one)
+    assert len(got) == 1 and got.logw[0] == 0.0
+    np.testing.assert_allclose(got.mean[0], mean)
+    np.testing.assert_allclose(got.cov[0], cov)
+    two = Mixture(one.logw, np.array([[5.0, 5.0], [13.0, 5.0]]), one.cov)
+    assert message_belief(two, PARAMS) is two
+    single = Mixture.single([1.0, 2.0], np.eye(2))
+    assert message_belief(single, PARAMS) is single

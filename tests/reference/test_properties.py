@@ -17,6 +17,7 @@ from peerfix.reference.node import (
     BlockedModel,
     Received,
     anchor_message,
+    message_belief,
     order_for_update,
     outgoing,
     read_estimate,
@@ -99,7 +100,8 @@ def stepwise_update(inbox, p: EstimatorParams, blocked: BlockedModel) -> Mixture
     """node.update step by step (same calls, same order), checking each step."""
     work = None
     for msg in order_for_update(inbox)[: p.max_neighbours]:
-        rings = ring_messages(msg.belief, msg.range_m, msg.sigma_m, p, blocked.weight, blocked.bias_m)
+        rings = ring_messages(message_belief(msg.belief, p), msg.range_m, msg.sigma_m, p, blocked.weight,
+                              blocked.bias_m)  # fmt: skip
         if work is None:
             ring = first_ring(rings, BOX, p)
             if len(ring):

@@ -54,6 +54,14 @@ CPU_FLAGS = {
     "cortex-m4": ("-mcpu=cortex-m4", "-mthumb", "-mfloat-abi=soft"),
     "cortex-m0plus": ("-mcpu=cortex-m0plus", "-mthumb"),
 }
+# Per-CPU compile-only options.  The M4 has CLZ: pfx_fixed_clz32_inline
+# then uses the compiler's builtin (one instruction; the same count, x = 0
+# is tested first); the M0+ has none (the builtin would be a libgcc call),
+# so it keeps the portable binary search.
+CPU_DEFINES = {
+    "cortex-m4": ("-DPFX_USE_BUILTIN_CLZ",),
+    "cortex-m0plus": (),
+}
 OPT_LEVELS = ("O2", "Os")
 ELF_NAME = "peerfix.elf"
 MAP_NAME = "peerfix.map"
@@ -89,7 +97,7 @@ class TargetConfig:
 
     @property
     def cflags(self) -> tuple[str, ...]:
-        return self.cpu_flags + (f"-{self.opt}",) + COMMON_CFLAGS
+        return self.cpu_flags + (f"-{self.opt}",) + COMMON_CFLAGS + CPU_DEFINES[self.cpu]
 
     @classmethod
     def parse(cls, name: str) -> "TargetConfig":

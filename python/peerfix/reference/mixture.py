@@ -267,7 +267,8 @@ def gate_merge(m: Mixture, gate_sigma2: float) -> Mixture:
 
 def reduce_to(m: Mixture, cap: int, log_ratio: float, hard_cap: int | None = None, gate_sigma2: float = 0.0) -> Mixture:
     """Keep at most hard_cap heaviest, prune negligible components, fold
-    near-duplicates, then merge down to cap by Runnalls' cost.
+    components within the gate (always, not only above the cap), then merge
+    down to cap by Runnalls' cost.
 
     Keeping the heaviest first gives the same set as pruning first (the
     heaviest is in both) and is what a bounded buffer on the tag can do while
@@ -276,7 +277,7 @@ def reduce_to(m: Mixture, cap: int, log_ratio: float, hard_cap: int | None = Non
     if hard_cap is not None:
         m = keep_heaviest(m, hard_cap)
     m = prune(m, log_ratio)
-    if len(m) > cap:
+    if len(m) > 1:
         m = gate_merge(m, gate_sigma2)
     return runnalls_reduce(m, cap).normalised() if len(m) > cap else m.normalised()
 

@@ -87,7 +87,8 @@ def update(
     """
     work = prior
     for msg in order_for_update(inbox)[: params.max_neighbours]:
-        rings = ring_messages(msg.belief, msg.range_m, msg.sigma_m, params, blocked.weight, blocked.bias_m)
+        belief = message_belief(msg.belief, params)
+        rings = ring_messages(belief, msg.range_m, msg.sigma_m, params, blocked.weight, blocked.bias_m)
         if work is None:
             ring = first_ring(rings, bounds_m, params)
             work = ring.normalised() if len(ring) else None
@@ -101,6 +102,22 @@ def update(
     if work is None:
         return None
     return reduce_to(work, params.max_components, params.prune_log_ratio, None, params.merge_gate_sigma2)
+
+
+def message_belief(belief: Mixture, params: EstimatorParams) -> Mixture:
+    """The belief a neighbour's rings are made of.
+
+    A neighbour whose belief reads off as one mode (point_estimate, the
+    user's read-off) counts as that mode: one component with the mode's
+    moments, one ring instead of K.  A multimodal belief keeps every
+    component as a ring.  Cuts the products of an update by up to K.
+    """
+    if len(belief) <= 1:
+        return belief
+    pe = point_estimate(belief, params.mode_gate_sigma2, params.mode_min_weight)
+    if pe.mode_count != 1:
+        return belief
+    return Mixture.single(pe.mean, pe.cov)
 
 
 def predict(belief: Mixture | None, dt_s: float, process_var_m2_per_s: float) -> Mixture | None:

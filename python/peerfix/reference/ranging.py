@@ -172,7 +172,8 @@ def compact_update(
       product lies far off the ring and is pruned in all but the rarest cases;
     - converged: when an iteration moves its estimate by at most step_tol_m
       (the usual stopping rule of an iterated filter; the next one would move
-      it by far less).
+      it by far less), or by so little against the ring (|step|^2 <=
+      2 rho step_tol_m) that the next one would move it by about step_tol_m.
     """
     n = mean.shape[0]
     x = mean.copy()
@@ -191,7 +192,11 @@ def compact_update(
         gain[rows] = ph / s[rows][:, None]
         x[rows] = m + gain[rows] * (radius[rows] - predicted[rows])[:, None]
         step = x[rows] - xr
-        going = np.hypot(step[:, 0], step[:, 1]) > step_tol_m
+        step2 = step[:, 0] ** 2 + step[:, 1] ** 2
+        # Converged: the step is at most step_tol_m, or short against the ring
+        # (relinearising after a step d moves the prediction by its sagitta
+        # d^2 / (2 rho), so the next step would be at most about step_tol_m).
+        going = (step2 > step_tol_m**2) & (step2 > 2.0 * rho * step_tol_m)
         if k == 0 and gate_sigma2 > 0.0:
             innov0 = radius[rows] - predicted[rows]
             going &= innov0 * innov0 <= gate_sigma2 * s[rows]
@@ -234,20 +239,36 @@ def broad_update(mean, cov, centre, radius: float, var: float, params: Estimator
     return Mixture(logz + log_len, mu, p)
 
 
+def ring_gate(mean, cov, centre, radius, var, gate_sigma2: float) -> np.ndarray:
+    """Per pair: does the ring pass within sqrt(gate_sigma2) upper-bound sigmas
+    of the component mean?  (rho - r)^2 <= gate (var + lambda_max(P)); (n,) booleans."""
+    d = mean - centre
+    rho = np.hypot(d[:, 0], d[:, 1])
+    return (rho - radius) ** 2 <= gate_sigma2 * (var + max_eig2(cov))
+
+
 def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) -> Mixture:
     """All products of belief components and rings (before pruning), in a fixed
     order: belief component major, ring minor; broad products expand in place."""
     nb, nr = len(belief), len(rings)
     bi = np.repeat(np.arange(nb), nr)
     ri = np.tile(np.arange(nr), nb)
+    if params.product_gate_sigma2 > 0.0:
+        # Pairs whose ring passes far from the component are not formed (ring_gate).
+        keep = ring_gate(belief.mean[bi], belief.cov[bi], rings.centre[ri], rings.radius[ri], rings.var[ri],
+                         params.product_gate_sigma2)
+        bi, ri = bi[keep], ri[keep]
+    if bi.size == 0:
+        return Mixture.empty()
     mean, cov = belief.mean[bi], belief.cov[bi]
     centre, radius, var = rings.centre[ri], rings.radius[ri], rings.var[ri]
     base = belief.logw[bi] + rings.logw[ri]
     broad = is_broad(mean, cov, centre, radius, var, params)
 
-    out_logw = np.empty(nb * nr)
-    out_mean = np.empty((nb * nr, 2))
-    out_cov = np.empty((nb * nr, 2, 2))
+    npairs = bi.size
+    out_logw = np.empty(npairs)
+    out_mean = np.empty((npairs, 2))
+    out_cov = np.empty((npairs, 2, 2))
     compact = np.flatnonzero(~broad)
     if compact.size:
         x, p, ll = compact_update(mean[compact], cov[compact], centre[compact], radius[compact], var[compact],
@@ -268,6 +289,6 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
         arcs.logw = arcs.logw + base[k]
         pieces.append(arcs)
         start = k + 1
-    if start < nb * nr:
+    if start < npairs:
         pieces.append(Mixture(out_logw[start:], out_mean[start:], out_cov[start:]))
     return concat(pieces)
