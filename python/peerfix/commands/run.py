@@ -26,6 +26,8 @@ def register(sub) -> None:
     p.add_argument("--engine", choices=ENGINES, default="float")
     p.add_argument("--out", type=Path, required=True, metavar="OUT", help="folder for estimates.csv and metrics.json")
     p.add_argument("--json", action="store_true", help="print the final-iteration summary as JSON")
+    p.add_argument("--plots", action="store_true",
+                   help="also draw tracks.png and error_over_time.png into OUT (needs truth and several epochs)")
     add_estimator_options(p)
     add_air_options(p)
     add_time_options(p)
@@ -53,6 +55,14 @@ def handle(args) -> int:
         **timing,
     )
     doc = write_outputs(result, args.out)
+    if args.plots:
+        from ..report.tracks import write_run_pictures
+
+        try:
+            for path in write_run_pictures(result, args.out).values():
+                print(f"picture: {path}", file=sys.stderr)
+        except ValueError as why:
+            print(f"peerfix: no pictures: {why}", file=sys.stderr)
     final = doc.get("final", {})
     for line in log_summary_lines(doc):
         print(line, file=sys.stderr)

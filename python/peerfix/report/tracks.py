@@ -327,3 +327,38 @@ def plot_error_over_time(
         count_ax.set_ylim(bottom=0)
         fig.legend(loc="outside lower center", ncol=2)
         return style.save(fig, path)
+
+
+# --------------------------------------------------------------------------- one run
+
+
+RUN_PICTURES = {"tracks": "tracks.png", "error_over_time": "error_over_time.png"}
+
+
+def write_run_pictures(result: RunResult, out: Path) -> dict[str, Path]:
+    """`peerfix run --plots`: tracks against truth and error over time for one run.
+
+    Needs truth for the epochs run and at least two epochs; otherwise nothing is
+    written and the reason is raised as ValueError (the caller reports it).
+    """
+    scenario = result.scenario
+    t, est = estimates_per_epoch(result)
+    if len(t) < 2:
+        raise ValueError("tracks need at least two epochs; this run has " + str(len(t)))
+    truth = truth_per_epoch(scenario, t)
+    if not np.isfinite(truth).any():
+        raise ValueError("the scenario has no truth at the epochs run (truth.csv)")
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    label = f"{result.engine} engine"
+    colour = ENGINE_COLOURS.get(result.engine, "#1f5fa6")
+    agents = track_agents(scenario, truth)
+    written = {
+        "tracks": plot_tracks(out / RUN_PICTURES["tracks"], scenario, t, truth, [TrackRun(label, colour, est)],
+                              agents, f"{scenario.site.name}: tracks of {len(agents)} tags"),
+        "error_over_time": plot_error_over_time(
+            out / RUN_PICTURES["error_over_time"], [ErrorSeries(label, colour, t, track_errors(est, truth))],
+            f"{scenario.site.name}: error over time ({len(result.epochs[0].iterations)} iteration(s) per epoch)",
+            smooth_s=max(float(t[-1] - t[0]) / 120.0, 0.0)),
+    }
+    return written
