@@ -198,12 +198,70 @@ def robust_tuning(spec, results, lines, headline):
     desc = lambda r: ", ".join(f"{k} {r[k]:g}" for k in keys)  # noqa: E731
     lines += [f"At 20 % blocked the lowest p90 error is {f3(best['error_p90_m_pooled'])} m ({desc(best)}), the highest "
               f"{f3(worst['error_p90_m_pooled'])} m ({desc(worst)}).", ""]
+    _robust_preset_lines(rows, keys, lines, headline, spec.name)
     same = [r for r in rows if r["blocked_probability"] == 0.0 and all(r[k] == best[k] for k in keys)]
     los = same[0]["error_p90_m_pooled"] if same else None
     if los:
         headline.append((f"the same with the best reduction settings of the robust-tuning study ({desc(best)}): "
                          f"p90 {f3(best['error_p90_m_pooled'])} m, {f2(best['error_p90_m_pooled'] / los)} times the "
                          f"line-of-sight p90 of those settings ({f3(los)} m, robust likelihood)", command(spec.name)))
+
+
+def _robust_preset_lines(rows, keys, lines, headline, name):
+    """The rows of the robust preset (what `peerfix run --robust` picks): p90 at 20 % blocked
+    against the line of sight of the same settings and against the standard likelihood's
+    line of sight at the same iterations (blocked-share study, when stored)."""
+    from peerfix.reference.params import ROBUST_PRESET, EstimatorParams
+
+    defaults = EstimatorParams().as_dict()
+
+    def is_preset(r):  # the preset's values, and the defaults for every other swept setting
+        return all(r[k] == ROBUST_PRESET.get(k, defaults[k]) for k in keys if k in defaults)
+
+    standard = {}
+    bs = ROOT / "campaigns" / "blocked-share.toml"
+    if bs.is_file():
+        bspec = load_spec(bs)
+        res = stored_results(bspec, _OUT["out"] / bspec.name)
+        if len(res) == bspec.cell_count():
+            for r in summarise(res, ["blocked_probability", "robust", "iterations"]):
+                if r["blocked_probability"] == 0.0 and not r["robust"]:
+                    standard[r["iterations"]] = r["error_p90_m_pooled"]
+    body = []
+    for r in rows:
+        if r["blocked_probability"] != 0.2 or not is_preset(r):
+            continue
+        los = [q for q in rows if q["blocked_probability"] == 0.0 and all(q[k] == r[k] for k in keys)]
+        if not los:
+            continue
+        p90, lr = r["error_p90_m_pooled"], los[0]["error_p90_m_pooled"]
+        ls = standard.get(r["iterations"])
+        body.append([str(r["iterations"]), f3(p90), f3(lr), f2(p90 / lr), f3(ls), f2(p90 / ls) if ls else "-",
+                     f3(r["coverage_95"]), f3(r["run_s"])])
+        headline.append((f"blocked paths on 20 % of ranges (bias mean 1 m), robust preset (`peerfix run --robust`), "
+                         f"{r['iterations']} iterations: p90 {f3(p90)} m, {f2(p90 / lr)} times the line-of-sight p90 of "
+                         f"the same settings ({f3(lr)} m)"
+                         + (f", {f2(p90 / ls)} times the standard likelihood's ({f3(ls)} m)" if ls else "")
+                         + f" (target <= 2); {f3(r['run_s'])} s per network", command(name)))
+    if body:
+        lines += ["The robust preset (peerfix.reference.params.ROBUST_PRESET: "
+                  + ", ".join(f"{k} {v:g}" for k, v in ROBUST_PRESET.items())
+                  + "), 20 % blocked, against line of sight:", ""]
+        lines += table(["iterations", "p90 error (m)", "LOS p90, same settings (m)", "ratio",
+                        "LOS p90, standard likelihood (m)", "ratio", "95 % coverage", "run s/network"], body)
+        ratios = []
+        for r in rows:
+            los = [q for q in rows if q["blocked_probability"] == 0.0 and all(q[k] == r[k] for k in keys)]
+            if r["blocked_probability"] == 0.2 and los:
+                ratios.append((r["error_p90_m_pooled"] / los[0]["error_p90_m_pooled"], r))
+        low, r = min(ratios, key=lambda t: t[0])
+        lines += ["", f"Lowest ratio of any setting of this study (against line of sight of the same settings): "
+                  f"{f2(low)}, at 95 % coverage {f3(r['coverage_95'])} and worst network "
+                  f"{f3(r['fraction_within_1m_min'])} within 1 m ({', '.join(f'{k} {r[k]:g}' for k in keys)}); "
+                  + ("the target <= 2 is met." if low <= 2 else "no setting meets the target <= 2."), ""]
+
+
+_OUT = {"out": OUT}  # the campaign folders render() reads (a study may join another's cells)
 
 
 def _cycles_per_k(budget: dict | None) -> tuple[dict[int, tuple], str]:
@@ -458,6 +516,7 @@ def _results(spec, folder: Path, stale: list[str]) -> list[dict] | None:
 
 
 def render(specs: dict, out: Path, budget: dict | None) -> str:
+    _OUT["out"] = out
     stale: list[str] = []
     lines = [INTRO, source_note(out, list(specs)), ""]
     headline: list[tuple[str, str]] = []

@@ -9,6 +9,7 @@ import sys
 
 from ..driver import SCHEDULES
 from ..reference import EstimatorParams
+from ..reference.params import robust_preset
 
 
 def add_estimator_options(p: argparse.ArgumentParser) -> None:
@@ -61,6 +62,10 @@ def estimator_params(args) -> EstimatorParams:
         params = params.replace(**{name: parsed})
     if params.max_components < 1:
         raise SystemExit("peerfix: error: --components must be at least 1")
+    if params.robust:
+        # The robust likelihood comes with its own reduction settings
+        # (docs/estimator.md, "Robust preset"); what --param set explicitly wins.
+        params = robust_preset(params, keep=tuple(item.partition("=")[0] for item in args.param))
     return params
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from ..reference.params import ROBUST_ITERATIONS, ROBUST_PRESET
 from ..runner import ENGINES, run_scenario, write_outputs
 from ..scenario import read_scenario
 from .common import (
@@ -21,7 +22,17 @@ from .common import (
 
 
 def register(sub) -> None:
-    p = sub.add_parser("run", help="run an estimator on a scenario folder", description=__doc__)
+    preset = ", ".join(f"{k} {v:g}" for k, v in ROBUST_PRESET.items())
+    p = sub.add_parser(
+        "run",
+        help="run an estimator on a scenario folder",
+        description=__doc__,
+        epilog=(
+            f"--robust also picks the robust preset ({preset}; peerfix.reference.params.ROBUST_PRESET, "
+            f"docs/estimator.md); --param NAME=VALUE still overrides any of them. The preset is measured "
+            f"with --iterations {ROBUST_ITERATIONS}. Without --robust the defaults are unchanged."
+        ),
+    )
     p.add_argument("scenario", type=Path, metavar="SCENARIO_DIR")
     p.add_argument("--engine", choices=ENGINES, default="float")
     p.add_argument("--out", type=Path, required=True, metavar="OUT", help="folder for estimates.csv and metrics.json")
