@@ -7,6 +7,7 @@ import csv
 import json
 import textwrap
 
+import numpy as np
 import pytest
 
 from peerfix.campaign import METRIC_COLUMNS, CellStore, expand, parse_spec, run_campaign, stored_results, summarise
@@ -204,37 +205,68 @@ def test_cli_sweep_end_to_end_and_bad_spec(tmp_path, capsys):
 
 
 def test_hold_last_heard_reuses_lost_broadcasts_until_the_next_epoch():
-    from peerfix.campaign.hold import HoldLastHeard
-    from peerfix.engine import Inbound
+    """driver.run_epoch(hold_last_heard=True): a lost broadcast is replaced by the
+    sender's last one that reached this receiver in the epoch, never one of another
+    receiver or of an earlier epoch."""
+    from peerfix.driver import run_epoch
+    from peerfix.engine import NodeReport
+    from peerfix.network import Link
 
     class Recorder:
+        """Anchor 'a' speaks; agent 'b' speaks 'b<iteration>'; records every inbox."""
+
         name = "recorder"
-        frames_rejected = 7
 
         def __init__(self):
-            self.calls = []
+            self.calls, self.spoken = [], {"b": 0}
+
+        def broadcast(self, node):
+            if node == "a":
+                return "a1"
+            if node == "b":
+                self.spoken["b"] += 1
+                return f"b{self.spoken['b']}"
+            return None
+
+        def message_bytes(self, msg):
+            return 1
 
         def update(self, agent_id, inbox):
             self.calls.append((agent_id, sorted((m.sender, m.message) for m in inbox)))
 
-        def predict(self, agent_id, dt_s, q):
-            pass
+        def report(self, agent_id):
+            return NodeReport(np.zeros(2), np.eye(2), 1, 1, 1.0)
 
-    inner = Recorder()
-    eng = HoldLastHeard(inner)
-    a1, b1 = Inbound("a", "a1", 5.0, 0.1, True), Inbound("b", "b1", 7.0, 0.1, False)
-    eng.update("t", [a1, b1])
-    eng.update("t", [Inbound("b", "b2", 7.0, 0.1, False)])  # a's broadcast lost: its last one is used
-    eng.update("u", [])  # another receiver holds only what it heard itself
-    eng.predict("t", 1.0, 1.0)  # new epoch: held ranges are stale
-    eng.update("t", [])
-    assert inner.calls == [
-        ("t", [("a", "a1"), ("b", "b1")]),
-        ("t", [("a", "a1"), ("b", "b2")]),
-        ("u", []),
-        ("t", []),
-    ]
-    assert eng.name == "recorder" and eng.frames_rejected == 7  # everything else goes to the engine
+        def belief(self, agent_id):
+            return None
+
+    class LoseSecondFromA:
+        """A channel that loses anchor a's frame to receiver t in the second iteration only."""
+
+        ideal = False
+
+        class counts:
+            lost = corrupted = 0
+
+        def __init__(self):
+            self.n = 0
+
+        def deliver(self, msg):
+            self.n += 1
+            return None if (msg == "a1" and self.n == 3) else msg
+
+    links = {"t": [Link("a", 5.0, 0.1, 1, True), Link("b", 7.0, 0.1, 1, False)], "b": []}
+    for epoch in range(2):
+        eng = Recorder()
+        run_epoch(eng, ["b", "t"], ["a"], links, 2, "slot", float(epoch), channel=LoseSecondFromA(),
+                  hold_last_heard=True)
+        t_calls = [c for c in eng.calls if c[0] == "t"]
+        # iteration 1: both heard; iteration 2: a's frame lost, its held one is used
+        assert t_calls == [("t", [("a", "a1"), ("b", "b1")]), ("t", [("a", "a1"), ("b", "b2")])]
+    # Without holding, the lost frame is simply missing.
+    eng = Recorder()
+    run_epoch(eng, ["b", "t"], ["a"], links, 2, "slot", 0.0, channel=LoseSecondFromA())
+    assert [c for c in eng.calls if c[0] == "t"][1] == ("t", [("b", "b2")])
 
 
 def test_hold_last_heard_setting_reaches_the_run(tmp_path):

@@ -470,7 +470,7 @@ two causes show up, each with its fix:
   iteration, so under loss a tag hears another random subset of its
   neighbours every iteration and its estimate jumps (largest on the mine
   drift, where a tag has few neighbours).  Holding each neighbour's last heard
-  broadcast (`hold_last_heard = true`, peerfix.campaign.hold) is the fix on
+  broadcast (`hold_last_heard = true`, driver.run_epoch) is the fix on
   either schedule: compare the two lines of each site above and the
   packet-loss table.  It is a receiver's rule, not damping of the estimator.
 - Blocked paths taken at face value.  On the cold store the racks block many

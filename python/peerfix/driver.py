@@ -65,6 +65,7 @@ def run_epoch(
     on_iteration=None,
     channel: Channel | None = None,
     present=None,
+    hold_last_heard: bool = False,
 ) -> EpochRecord:
     """Run `iterations` rounds of the schedule; returns every agent's report per round.
 
@@ -72,6 +73,10 @@ def run_epoch(
     channel: packet loss and bit errors between sender and receiver (None: ideal).
     present: the agents that take part (None: all); the others neither update
     nor broadcast, and the reports keep their last state.
+    hold_last_heard: a receiver reuses a neighbour's last broadcast that reached
+    it in this epoch when this iteration's is lost or not sent (with a lossy
+    channel a tag otherwise hears another subset of neighbours every iteration
+    and its estimate jumps about); held messages end with the epoch.
     """
     if schedule not in SCHEDULES:
         raise ValueError(f"unknown schedule {schedule!r}; choose one of {', '.join(SCHEDULES)}")
@@ -83,6 +88,12 @@ def run_epoch(
     air.update({a: None for a in agent_ids})
     if channel is not None and channel.ideal:
         channel = None
+    # Per receiver, per sender: the last message that reached it this epoch (None: holding is off).
+    held = {a: {} for a in agent_ids} if hold_last_heard else None
+
+    def inbox(a: str) -> list[Inbound]:
+        return _inbox(links[a], air, channel, None if held is None else held[a])
+
     for it in range(1, iterations + 1):
         sent = 0
         sent_bytes = 0
@@ -92,10 +103,10 @@ def run_epoch(
             for a in active:
                 air[a] = engine.broadcast(a)
             for a in active:
-                engine.update(a, _inbox(links[a], air, channel))
+                engine.update(a, inbox(a))
         else:
             for a in active:
-                engine.update(a, _inbox(links[a], air, channel))
+                engine.update(a, inbox(a))
                 air[a] = engine.broadcast(a)  # a's slot: it speaks right after updating
         for a in agent_ids:
             if air[a] is not None:
@@ -116,7 +127,10 @@ def _counters(engine, channel) -> tuple[int, int, int]:
     return lost, corrupted, getattr(engine, "frames_rejected", 0)
 
 
-def _inbox(links: list[Link], air: dict, channel: Channel | None = None) -> list[Inbound]:
+def _inbox(links: list[Link], air: dict, channel: Channel | None = None, held: dict | None = None) -> list[Inbound]:
+    """What reaches one receiver: each neighbour's message through the channel; with
+    `held`, the neighbours heard earlier in the epoch but not now follow, in the
+    order first heard."""
     inbox = []
     for link in links:
         msg = air[link.other]
@@ -124,6 +138,11 @@ def _inbox(links: list[Link], air: dict, channel: Channel | None = None) -> list
             msg = channel.deliver(msg)
         if msg is not None:
             inbox.append(Inbound(link.other, msg, link.range_m, link.sigma_m, link.other_is_anchor))
+    if held is not None:
+        fresh = {m.sender for m in inbox}
+        stale = [m for sender, m in held.items() if sender not in fresh]
+        held.update((m.sender, m) for m in inbox)
+        inbox += stale
     return inbox
 
 

@@ -67,10 +67,3 @@ class Engine(Protocol):
         silence timeout, or when its predicted spread outgrew the site.
         """
 
-
-def reset_to_prior(engine, agent_id: str, bounds_m=None) -> None:
-    """engine.reset(agent_id), with a clear error for an engine that lacks it."""
-    reset = getattr(engine, "reset", None)
-    if reset is None:
-        raise TypeError(f"engine {getattr(engine, 'name', engine)!r} has no reset(agent_id); the Engine protocol needs it")
-    reset(agent_id)

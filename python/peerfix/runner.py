@@ -17,7 +17,6 @@ from pathlib import Path
 import numpy as np
 
 from .driver import EpochRecord, run_epoch
-from .engine import reset_to_prior
 from .network import epoch_links
 from .reference import BlockedModel, EstimatorParams, FloatEngine
 from .scenario.epochs import LogReport, group_epochs
@@ -106,6 +105,7 @@ def run_scenario(
     walk_speed_mps: float | None = None,
     silence_timeout_s: float | None = None,
     fix_sd_m: float = FIX_SD_M,
+    hold_last_heard: bool = False,
 ) -> RunResult:
     """Run every epoch of the scenario.
 
@@ -113,6 +113,8 @@ def run_scenario(
     score=False skips the metrics (benchmarks time the estimator alone).
     air: the fixed engine sends frame bytes (False: in-memory structs).
     channel: a peerfix.channel.Channel for packet loss and bit errors.
+    hold_last_heard: receivers reuse a neighbour's last heard broadcast of the
+    epoch when this iteration's is lost (driver.run_epoch).
     epoch_window_s, walk_speed_mps, silence_timeout_s: the time rules; None
     takes the site's [tracking] value, else the default (exact grouping; the
     fixed process_var_m2_per_s; 10 s).  walk_speed_mps, when set, replaces
@@ -151,7 +153,7 @@ def run_scenario(
             progress(done, total)
 
     def reset(agent: str, why: str) -> None:
-        reset_to_prior(eng, agent, bounds)
+        eng.reset(agent)
         last_seen[agent] = None
         counts = resets.setdefault(agent, {"silence": 0, "spread": 0})
         counts[why] += 1
@@ -179,7 +181,7 @@ def run_scenario(
             last_seen[a] = t_s
         record = run_epoch(
             eng, scenario.agent_ids, scenario.anchor_ids, links, iterations, schedule, t_s, keep_beliefs, tick, channel,
-            present=present,
+            present=present, hold_last_heard=hold_last_heard,
         )
         result.epochs.append(record)
         result.metrics.append(score_epoch(scenario, record, cooperative, rows=rows) if score else {})

@@ -39,8 +39,7 @@ def run_cell(doc: dict) -> dict:
 
 def _run(cell: Cell) -> dict:
     from ..channel import Channel
-    from ..runner import blocked_model, make_engine, run_scenario, score_epoch
-    from .hold import HoldLastHeard
+    from ..runner import run_scenario, score_epoch
     from ..simulate import simulate
 
     c0, t0 = time.process_time(), time.perf_counter()
@@ -49,12 +48,9 @@ def _run(cell: Cell) -> dict:
     # The channel's draws are seeded by the network's seed: engines see the same losses.
     channel = Channel(cell.packet_loss, cell.bit_error_rate, cell.seed) if (cell.packet_loss or cell.bit_error_rate) else None
     params = cell.params()
-    engine = cell.engine
-    if cell.hold_last_heard:
-        engine = HoldLastHeard(make_engine(cell.engine, params, blocked_model(scenario, params), cell.air))
     result = run_scenario(
         scenario,
-        engine,
+        cell.engine,
         params,
         cell.iterations,
         cell.schedule,
@@ -62,6 +58,7 @@ def _run(cell: Cell) -> dict:
         score=False,  # timed apart: run_s is the estimator alone
         air=cell.air,
         channel=channel,
+        hold_last_heard=cell.hold_last_heard,
     )
     t2 = time.perf_counter()
     record = result.epochs[-1]  # simulated networks are static: one epoch

@@ -36,7 +36,7 @@ class Cell:
     packet_loss: float  # channel: a receiver misses a broadcast
     bit_error_rate: float
     air: bool
-    hold_last_heard: bool = False  # receivers reuse a neighbour's last heard broadcast (hold.py)
+    hold_last_heard: bool = False  # receivers reuse a neighbour's last heard broadcast (driver.run_epoch)
 
     def params(self) -> EstimatorParams:
         return EstimatorParams(**dict(self.estimator))

@@ -12,7 +12,7 @@
     [estimator]                            # fixed estimator settings
     K = 4                                  # = max_components; any EstimatorParams field,
     iterations = 4                         # and the run settings iterations, schedule,
-    schedule = "slot"                      # cooperative, hold_last_heard (campaign/hold.py)
+    schedule = "slot"                      # cooperative, hold_last_heard (driver.run_epoch)
 
     [channel]                              # the radio between nodes (peerfix.channel)
     packet_loss = 0.0                      # a receiver misses a broadcast

@@ -217,7 +217,5 @@ class CentralEngine:
 
     def reset(self, agent_id):
         """The twin's agent back at the prior (the joint solve keeps no per-agent state)."""
-        from ..engine import reset_to_prior
-
-        reset_to_prior(self.twin, agent_id, self.twin.bounds_m)
+        self.twin.reset(agent_id)
         self.solution = None
