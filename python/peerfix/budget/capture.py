@@ -421,6 +421,7 @@ class Replayed:
     cycles: int  # ESTIMATE (peerfix.budget.timing)
     stack_bytes: int  # measured high-water mark
     mismatch: list[str]  # what differed from the host; empty: bit-exact
+    per_function: dict[str, tuple[int, int]] = field(default_factory=dict)  # name -> (instructions, cycles)
 
     @property
     def bit_exact(self) -> bool:
@@ -461,4 +462,4 @@ def replay(em, call: CapturedCall) -> Replayed:
             what = "output" if a.is_output else "input changed"
             problems.append(f"argument {i} ({a.kind}, {len(want)} B) {what}: {len(diff)} bytes differ, "
                             f"first at offset {diff[0]}")
-    return Replayed(call, res.value, res.instructions, res.cycles, res.stack_bytes, problems)
+    return Replayed(call, res.value, res.instructions, res.cycles, res.stack_bytes, problems, res.per_function)
