@@ -16,9 +16,8 @@ import argparse
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
-from peerfix.budget.capture import HEADLINE_BUCKET, capture, replay
-from peerfix.budget.emulator import Emulator
-from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE
+from peerfix.budget.capture import HEADLINE_BUCKET, capture
+from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
 
 
 def _table(title: str, per_function: dict[str, tuple[int, int]], top: int) -> None:
@@ -39,8 +38,7 @@ def main() -> None:
     result = build(TargetConfig(args.target, args.opt))
     sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)))
     calls = [c for c in sel.calls["pfx_node_update"] if c.bucket == HEADLINE_BUCKET]
-    em = Emulator.from_elf(result.elf, args.target)
-    rows = [replay(em, c) for c in calls]
+    rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))
     bad = [r for r in rows if not r.bit_exact]
     cycles = sorted(r.cycles for r in rows)
     print(f"{args.target}-{args.opt}: {len(rows)} headline updates, median {statistics.median(cycles):,.0f}, "

@@ -47,7 +47,7 @@ MAX_LISTED_MISMATCHES = 50
 
 
 @lru_cache(maxsize=8)
-def _replay_all(elf: str, key: str, cpu: str, calls: tuple[CapturedCall, ...]) -> tuple[Replayed, ...]:
+def replay_all(elf: str, key: str, cpu: str, calls: tuple[CapturedCall, ...]) -> tuple[Replayed, ...]:
     """Every call replayed on one emulator (cached: the same image and calls give the same figures)."""
     from peerfix.budget.emulator import Emulator
 
@@ -103,7 +103,7 @@ def budget_report(
         calls = capture(*((QUICK_CALLS, QUICK_HEADLINE) if quick else (FULL_CALLS, FULL_HEADLINE)), seed=seed)
     captured = calls if isinstance(calls, CaptureSet) else None
     call_list = calls.all_calls() if isinstance(calls, CaptureSet) else list(calls)
-    replayed = _replay_all(str(result.elf), result.key, config.cpu, tuple(call_list))
+    replayed = replay_all(str(result.elf), result.key, config.cpu, tuple(call_list))
 
     size = sizes(result.elf)
     layout = read_layout(result.elf)
