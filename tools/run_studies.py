@@ -33,7 +33,7 @@ from peerfix.campaign import expand, load_spec, run_campaign, stored_results, su
 from peerfix.campaign.execute import manifest_results, read_runs, write_outputs  # noqa: E402
 
 SCALE = "open-field-1000"
-ORDER = ["blocked-share", "robust-tuning", "packet-loss", "density", "anchors", "convergence", "convergence-loss",
+ORDER = ["blocked-share", "robust-tuning", "robust-ring", "packet-loss", "density", "anchors", "convergence", "convergence-loss",
          "tempering", "components", SCALE]
 OUT = ROOT / "build" / "studies"
 DOC = ROOT / "docs" / "studies.md"
@@ -188,6 +188,12 @@ def generic(spec, results, lines, headline):
     lines += ["", "p90 error and RMSE within 1 m pooled over all agents of all networks.", ""]
 
 
+def robust_ring(spec, results, lines, headline):
+    generic(spec, results, lines, headline)
+    rows = summarise(results, list(spec.swept))
+    _robust_preset_lines(rows, [c for c in spec.swept if c != "blocked_probability"], lines, headline, spec.name, spec)
+
+
 def robust_tuning(spec, results, lines, headline):
     generic(spec, results, lines, headline)
     rows = summarise(results, [c for c in spec.swept])
@@ -198,7 +204,7 @@ def robust_tuning(spec, results, lines, headline):
     desc = lambda r: ", ".join(f"{k} {r[k]:g}" for k in keys)  # noqa: E731
     lines += [f"At 20 % blocked the lowest p90 error is {f3(best['error_p90_m_pooled'])} m ({desc(best)}), the highest "
               f"{f3(worst['error_p90_m_pooled'])} m ({desc(worst)}).", ""]
-    _robust_preset_lines(rows, keys, lines, headline, spec.name)
+    _robust_preset_lines(rows, keys, lines, headline, spec.name, spec)
     same = [r for r in rows if r["blocked_probability"] == 0.0 and all(r[k] == best[k] for k in keys)]
     los = same[0]["error_p90_m_pooled"] if same else None
     if los:
@@ -207,16 +213,23 @@ def robust_tuning(spec, results, lines, headline):
                          f"line-of-sight p90 of those settings ({f3(los)} m, robust likelihood)", command(spec.name)))
 
 
-def _robust_preset_lines(rows, keys, lines, headline, name):
+def _robust_preset_lines(rows, keys, lines, headline, name, spec):
     """The rows of the robust preset (what `peerfix run --robust` picks): p90 at 20 % blocked
     against the line of sight of the same settings and against the standard likelihood's
-    line of sight at the same iterations (blocked-share study, when stored)."""
+    line of sight at the same iterations (blocked-share study, when stored).  A study that
+    holds a preset setting at another value than the preset's has no preset rows."""
     from peerfix.reference.params import ROBUST_PRESET, EstimatorParams
 
     defaults = EstimatorParams().as_dict()
+    held = defaults | spec.fixed.get("estimator", {})  # every setting not swept
+    other = [f"{k} {held[k]:g} here, {v:g} in the preset" for k, v in ROBUST_PRESET.items()
+             if k not in keys and held[k] != v]
+    if other:
+        lines += [f"This study does not run the robust preset as it now stands ({'; '.join(other)}).", ""]
 
     def is_preset(r):  # the preset's values, and the defaults for every other swept setting
-        return all(r[k] == ROBUST_PRESET.get(k, defaults[k]) for k in keys if k in defaults)
+        return (all(r[k] == ROBUST_PRESET.get(k, defaults[k]) for k in keys if k in defaults)
+                and all(held[k] == v for k, v in ROBUST_PRESET.items() if k not in keys))
 
     standard = {}
     bs = ROOT / "campaigns" / "blocked-share.toml"
@@ -351,6 +364,7 @@ SECTIONS = {
     "convergence-loss": convergence_loss,
     "components": components,
     "robust-tuning": robust_tuning,
+    "robust-ring": robust_ring,
     "tempering": tempering,
     SCALE: scale,
 }

@@ -51,7 +51,9 @@ def blocked_model(scenario: Scenario, params: EstimatorParams) -> BlockedModel:
         return BlockedModel()
     model = scenario.site.ranging
     weight = model.blocked_probability if model.blocked_probability > 0 else params.robust_weight
-    return BlockedModel(weight=weight, bias_m=model.blocked_bias_mean_m or params.robust_bias_m)
+    return BlockedModel(
+        weight=weight, bias_m=model.blocked_bias_mean_m or params.robust_bias_m, ring_scale=params.robust_ring_scale
+    )
 
 
 # Defaults of the time rules (docs/scenario-format.md, "Time and epochs").

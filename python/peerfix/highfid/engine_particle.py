@@ -56,7 +56,7 @@ class ParticleEngine:
     ):
         self.params = params
         self.pp = particle_params or ParticleParams()
-        self.blocked = Blocked(blocked.weight, blocked.bias_m)
+        self.blocked = Blocked(blocked.weight, blocked.ring_offset_m)  # the same blocked ring as the twin
         self.bounds_m = None
         self.anchors: dict[str, np.ndarray] = {}
         self.beliefs: dict[str, ParticleBelief | None] = {}

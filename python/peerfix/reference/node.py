@@ -35,7 +35,15 @@ class BlockedModel:
     """Blocked-path share and mean bias for the robust likelihood (0 = off)."""
 
     weight: float = 0.0
-    bias_m: float = 0.0
+    bias_m: float = 0.0  # the physical model: mean of the exponential bias
+    ring_scale: float = 1.0  # the ring engines' blocked ring sits ring_offset_m short of the range
+
+    @property
+    def ring_offset_m(self) -> float:
+        """Offset (and extra standard deviation) of the blocked-path ring: the
+        float twin, the fixed core and the particle engine all use this ring,
+        so the particle engine measures the belief approximation alone."""
+        return self.bias_m * self.ring_scale
 
 
 def spread_m(belief: Mixture) -> float:
@@ -88,7 +96,7 @@ def update(
     work = prior
     for msg in order_for_update(inbox)[: params.max_neighbours]:
         belief = message_belief(msg.belief, params)
-        rings = ring_messages(belief, msg.range_m, msg.sigma_m, params, blocked.weight, blocked.bias_m)
+        rings = ring_messages(belief, msg.range_m, msg.sigma_m, params, blocked.weight, blocked.ring_offset_m)
         if work is None:
             ring = first_ring(rings, bounds_m, params)
             work = ring.normalised() if len(ring) else None
