@@ -191,7 +191,18 @@ def generic(spec, results, lines, headline):
 def robust_ring(spec, results, lines, headline):
     generic(spec, results, lines, headline)
     rows = summarise(results, list(spec.swept))
-    _robust_preset_lines(rows, [c for c in spec.swept if c != "blocked_probability"], lines, headline, spec.name, spec)
+    los = {(r["robust_ring_scale"], r["iterations"]): r for r in rows if r["blocked_probability"] == 0.0}
+    body = []
+    for r in rows:
+        if r["blocked_probability"] == 0.2:
+            base = los[(r["robust_ring_scale"], r["iterations"])]
+            body.append([f"{r['robust_ring_scale']:g}", str(r["iterations"]), f3(r["error_p90_m_pooled"]),
+                         f3(base["error_p90_m_pooled"]), f2(r["error_p90_m_pooled"] / base["error_p90_m_pooled"]),
+                         f3(r["coverage_95"])])
+    lines += ["20 % blocked against line of sight of the same settings:", ""]
+    lines += table(["ring scale", "iterations", "p90 error (m)", "LOS p90 (m)", "ratio", "95 % coverage"], body) + [""]
+    best = min(body, key=lambda b: float(b[4]))
+    lines += [f"Lowest ratio: {best[4]} (ring scale {best[0]}, {best[1]} iterations, 95 % coverage {best[5]}).", ""]
 
 
 def robust_tuning(spec, results, lines, headline):
