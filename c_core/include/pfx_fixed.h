@@ -136,10 +136,11 @@ pfx_status_t pfx_fixed_div64_sat(int64_t n, int64_t d, int64_t *out);
 pfx_status_t pfx_fixed_recip(uint32_t d, pfx_mant_q30_t *mant, unsigned *shift);
 
 /* ---- square roots -----------------------------------------------------------
- * isqrt: floor(sqrt(x)), exact, bit by bit (16 or 32 steps of shifts, adds
- *   and compares; no multiply, no divide).
+ * isqrt: floor(sqrt(x)), exact.  u32: bit by bit (16 steps of shifts, adds
+ *   and compares; no multiply, no divide).  u64: a fitted seed, two Newton
+ *   steps on 32x32 -> 64 multiplies and one exact remainder test.
  * isqrt_round: round(sqrt(x)) exactly (an integer's square root is never
- *   exactly half-way), from the remainder of the same loop.
+ *   exactly half-way), from the remainder of the same computation.
  *   isqrt_round_u64 can be 2^32, hence uint64_t.
  * sqrt_q: *out = round(sqrt(x / 2^frac_in) * 2^frac_out), exact, for
  *   0 <= 2*frac_out - frac_in <= 32 (Q2n -> Qn is frac_in = 2n, frac_out = n;

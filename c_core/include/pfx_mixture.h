@@ -184,7 +184,7 @@ pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r);
 int64_t pfx_mixture_mul_recip(int64_t num, const pfx_recip64_t *r, unsigned frac);
 /* 2^x * 2^40 for a log2 weight x <= 0 (Q16): int64 Q40, 0 below 2^-40. */
 int64_t pfx_mixture_lin_q40(int64_t x);
-/* round(sqrt(x)) exactly, for any 64-bit x (rsqrt seed, three Newton steps, exact correction). */
+/* round(sqrt(x)) exactly, for any 64-bit x (= pfx_fixed_isqrt_round_u64). */
 uint64_t pfx_mixture_isqrt_round(uint64_t x);
 /* y = 2^30 / sqrt(m / 2^64) (Q30, about 2^-29 relative) for m in [2^62, 2^64). */
 uint64_t pfx_mixture_rsqrt_q30(uint64_t m);

@@ -15,6 +15,8 @@
  * The tables and polynomial constants are generated from their defining
  * formulas by peerfix.core.quantise (log2_table, exp2_table, exp2_poly,
  * recip_seed_table); tests/core checks that the arrays here equal those.
+ * One table is fitted instead, k_rsqrt_line_q30 (square-root seeds): only its
+ * error bound matters, and tests/core checks that bound.
  */
 #include "peerfix.h"
 
@@ -539,14 +541,12 @@ pfx_status_t pfx_fixed_div64_sat(int64_t n, int64_t d, int64_t *out)
  * D = dn / 2^32 in [0.5, 1); 1/d = 2^c / dn = Y * 2^(c - 62) with
  * Y = 2^62 / dn in (2^30, 2^31) for dn > 2^31.
  * Seed: y0 = 1/D at the middle of D's 1/256-wide interval, relative error
- * below 2^-8.  Newton: y <- y + y * (1 - D*y); the error e = 2^62 - dn*y is
- * exact in 64 bits, reduced to Q32 (|e| < 2^25 after the seed) so that
- * y * e fits in int64.  Two steps leave y at most 1 LSB below the rounded
- * value (exhaustive over every dn: one upward step for about 20% of them,
- * never a downward one); the correction loops, kept general for safety,
- * move y by whole LSBs until |2^62 - dn*y| <= dn/2,
- * which makes y the correctly rounded 2^62 / dn (never a tie: 2^63 has no
- * odd factor).  dn*y stays below 2^63 because y <= 2^31 throughout.
+ * below 2^-8.  Two Newton steps y <- y (2 - D y) on 32x32 -> 64 products,
+ * both kept at or below Y (the first by a margin of 2 LSB, the second
+ * from below), leave y at most 2 LSB under Y (exhaustive over every dn);
+ * the remainder 2^62 - dn*y then gives the correctly rounded 2^62 / dn,
+ * the y with |2^62 - dn*y| <= dn/2 (never a tie: 2^63 has no odd factor).
+ * dn*y stays at most 2^62 because y <= Y throughout.
  */
 pfx_status_t pfx_fixed_recip(uint32_t d, pfx_mant_q30_t *mant, unsigned *shift)
 {
@@ -554,9 +554,10 @@ pfx_status_t pfx_fixed_recip(uint32_t d, pfx_mant_q30_t *mant, unsigned *shift)
     unsigned c;
     uint32_t dn;
     uint32_t y;
+    uint32_t t;
     uint64_t p;
+    uint64_t r;
     uint32_t half;
-    int step;
 
     if (mant == NULL || shift == NULL) {
         return PFX_ERR_ARG;
@@ -574,22 +575,26 @@ pfx_status_t pfx_fixed_recip(uint32_t d, pfx_mant_q30_t *mant, unsigned *shift)
         return PFX_OK;
     }
     y = (uint32_t)k_recip_seed_q15[(dn >> 24) - 128u] << 15;
-    for (step = 0; step < 2; ++step) {
-        int64_t e;
-        p = (uint64_t)dn * y;
-        e = (p <= one_q62) ? (int64_t)(one_q62 - p) : -(int64_t)(p - one_q62);
-        e = pfx_fixed_shr64_floor(e, 30u);
-        y = (uint32_t)((int64_t)y + pfx_fixed_shr64_round((int64_t)y * e, 32u));
-    }
+    /* y (2 - D y): t = D y in Q30 (< 2^31); the truncations raise y by at
+     * most 2, taken off, so y <= 2^62 / dn (the exact step never overshoots). */
+    t = (uint32_t)(((uint64_t)dn * y) >> 32);
+    y = (uint32_t)(((uint64_t)y * ((UINT32_C(1) << 31) - t)) >> 30) - 2u;
+    /* From below: e = 2^62 - dn y in [0, 2^48) (relative error < 2^-15.9
+     * after the first step), y += y e / 2^62 rounded down (e / 2^16 < 2^32):
+     * y stays <= 2^62 / dn, within 2 of it. */
     p = (uint64_t)dn * y;
-    half = dn >> 1;
-    while (p < one_q62 && one_q62 - p > half) {
+    y += (uint32_t)(((uint64_t)y * (uint32_t)((one_q62 - p) >> 16)) >> 46);
+    /* Exact: r = 2^62 - dn y >= 0; whole steps while r >= dn, then one more
+     * when r > dn / 2 (r = dn / 2 is impossible, see above). */
+    p = (uint64_t)dn * y;
+    r = one_q62 - p;
+    while (r >= dn) {
+        r -= dn;
         ++y;
-        p += dn;
     }
-    while (p > one_q62 && p - one_q62 > half) {
-        --y;
-        p -= dn;
+    half = dn >> 1;
+    if (r > half) {
+        ++y;
     }
     *mant = (pfx_mant_q30_t)y; /* y in (2^30, 2^31) */
     *shift = 62u - c;
@@ -622,24 +627,65 @@ static uint32_t isqrt32_rem(uint32_t x, uint32_t *rem)
     return root;
 }
 
-static uint32_t isqrt64_rem(uint64_t x, uint64_t *rem)
+/* Seeds of y = 2^30 / sqrt(m / 2^32) for m in [2^30, 2^32): on each eighth
+ * k = m >> 29 (2..7) the line y = A - B m / 2^32 of least maximum relative
+ * error (A, B in Q30; error below 2^-7 on every piece).  Only a bound on
+ * the error matters: the square root below ends in an exact step. */
+static const uint32_t k_rsqrt_line_q30[6][2] = {
+    {2913092172u, 3128366932u}, {2448634440u, 1872026500u}, {2154714734u, 1279508901u},
+    {1946840366u, 945227269u},  {1789687537u, 734956669u},  {1665441026u, 592596258u}
+};
+
+/* One Newton step y <- y (3 - M y^2) / 2 for y = 2^30 / sqrt(M) (Q30), M =
+ * m / 2^32: y^2 and M y^2 in Q28 (high words of 32x32 -> 64 products),
+ * then y (3 - M y^2) / 2 back in Q30.  The exact step never overshoots
+ * 2^30 / sqrt(M); the truncations move y up by at most 8 (u is at most 2
+ * low), and y <= 2^31 + 8 keeps every product below 2^63. */
+static uint32_t rsqrt_step(uint32_t m, uint32_t y)
 {
-    uint64_t root = 0u;
-    uint64_t bit = UINT64_C(1) << 62;
-    while (bit > x) {
-        bit >>= 2;
+    uint32_t t = (uint32_t)(((uint64_t)y * y) >> 32);
+    uint32_t u = (uint32_t)(((uint64_t)m * t) >> 32);
+    return (uint32_t)(((uint64_t)y * ((UINT32_C(3) << 28) - u)) >> 29);
+}
+
+/* floor(sqrt(x)) and *rem = x - root^2 (<= 2 root), from multiplies.
+ * xn = x 2^z in [2^62, 2^64) (z even), m its high word.  The seed and two
+ * Newton steps give y within 2^-22 of 2^30 / sqrt(m / 2^32); 16 is taken
+ * off, so y <= 2^30 / sqrt(m / 2^32) - 8 (both checked over every m).  Then
+ * s = m y / 2^30 <= sqrt(xn) and e = xn - s^2 in [0, 2^44); the step
+ * s += (e / 2^12) y / 2^51 (at most e / (2 sqrt(xn)), the Newton step from
+ * below) leaves s in [floor(sqrt(xn)) - 1, floor(sqrt(xn))].  So
+ * s / 2^(z/2) is floor(sqrt(x)) or one below it; one exact test of the
+ * remainder settles which. */
+static inline uint32_t isqrt64_rem(uint64_t x, uint64_t *rem)
+{
+    uint32_t hi = (uint32_t)(x >> 32);
+    unsigned z;
+    uint64_t xn, e;
+    uint32_t m, y, s, r;
+    const uint32_t *line;
+    if (x == 0u) {
+        *rem = 0u;
+        return 0u;
     }
-    while (bit != 0u) {
-        if (x >= root + bit) {
-            x -= root + bit;
-            root = (root >> 1) + bit;
-        } else {
-            root >>= 1;
-        }
-        bit >>= 2;
+    z = ((hi != 0u) ? pfx_fixed_clz32_inline(hi) : 32u + pfx_fixed_clz32_inline((uint32_t)x)) & ~1u;
+    xn = x << z;
+    m = (uint32_t)(xn >> 32);
+    line = k_rsqrt_line_q30[(m >> 29) - 2u];
+    y = line[0] - (uint32_t)(((uint64_t)line[1] * m) >> 32);
+    y = rsqrt_step(m, y);
+    y = rsqrt_step(m, y) - 16u;
+    s = (uint32_t)(((uint64_t)m * y) >> 30);
+    e = xn - (uint64_t)s * s;
+    s += (uint32_t)(((uint64_t)(uint32_t)(e >> 12) * y) >> 51);
+    r = s >> (z / 2u);
+    e = x - (uint64_t)r * r;
+    if (e > 2u * (uint64_t)r) {
+        e -= 2u * (uint64_t)r + 1u;
+        ++r;
     }
-    *rem = x;
-    return (uint32_t)root; /* floor(sqrt(x)) < 2^32 */
+    *rem = e;
+    return r;
 }
 
 uint32_t pfx_fixed_isqrt_u32(uint32_t x)
@@ -648,10 +694,15 @@ uint32_t pfx_fixed_isqrt_u32(uint32_t x)
     return isqrt32_rem(x, &rem);
 }
 
+/* From the rounded root (one copy of the 64-bit root): it is one above the
+ * floor exactly when its square exceeds x; 2^32 only for x > (2^32 - 1)^2. */
 uint32_t pfx_fixed_isqrt_u64(uint64_t x)
 {
-    uint64_t rem;
-    return isqrt64_rem(x, &rem);
+    uint64_t r = pfx_fixed_isqrt_round_u64(x);
+    if (r > UINT32_MAX) {
+        return UINT32_MAX;
+    }
+    return (uint32_t)((r * r > x) ? r - 1u : r);
 }
 
 /* (root + 1/2)^2 = root^2 + root + 1/4, so sqrt(x) is nearer root + 1
@@ -785,7 +836,20 @@ static uint64_t exp2_mant_q63(uint32_t f)
                    (((uint64_t)t3 * PFX_EXP2_C3 + (UINT64_C(1) << 15)) >> 16) +
                    (((uint64_t)t4 * PFX_EXP2_C4 + (UINT64_C(1) << 31)) >> 32);
     uint64_t e40 = (e56 + (UINT64_C(1) << 15)) >> 16;
-    return (UINT64_C(1) << 63) + (h << 31) + (e40 << 23) + ((h * e40) >> 9);
+    return (UINT64_C(1) << 63) + (h << 31) + (e40 << 23) + (((uint64_t)(uint32_t)h * (uint32_t)e40) >> 9);
+}
+
+/* round_shift_u64(m, s) for 33 <= s <= 65 from the high word alone:
+ * t = floor(m / 2^(s-1)) is a 32-bit shift of it (s - 1 >= 32), and the
+ * result is floor(t / 2) plus the rounding bit t & 1 (s = 65: 0). */
+static uint32_t round_shift_hi(uint64_t m, unsigned s)
+{
+    uint32_t t;
+    if (s > 64u) {
+        return 0u;
+    }
+    t = (uint32_t)(m >> 32) >> (s - 33u);
+    return (t >> 1) + (t & 1u);
 }
 
 /* Scaling: x in Q16 -> 2^x in Q30.  n = floor(x) <= 0; the Q63 mantissa is
@@ -796,8 +860,11 @@ pfx_frac_q30_t pfx_fixed_exp2_frac_sat(pfx_log2_q16_t x)
     if (x > 0) {
         return (pfx_frac_q30_t)PFX_FIXED_FRAC_Q30_ONE;
     }
-    n = pfx_fixed_shr_floor(x, 16u); /* in [-32768, 0] */
-    return (pfx_frac_q30_t)round_shift_u64(exp2_mant_q63((uint32_t)x & 0xFFFFu), (unsigned)(33 - n));
+    n = pfx_fixed_shr_floor(x, 16u); /* in [-32768, 0]: shift 33 - n >= 33 */
+    if (n < -32) {
+        return 0; /* shift > 65 */
+    }
+    return (pfx_frac_q30_t)round_shift_hi(exp2_mant_q63((uint32_t)x & 0xFFFFu), (unsigned)(33 - n));
 }
 
 pfx_status_t pfx_fixed_exp2_split(pfx_log2_q16_t x, pfx_mant_q30_t *mant, int32_t *exponent)
@@ -829,6 +896,6 @@ int32_t pfx_fixed_exp2_q_sat(pfx_log2_q16_t x, unsigned frac_bits)
     if (s <= 32) {
         return INT32_MAX;
     }
-    r = round_shift_u64(exp2_mant_q63((uint32_t)x & 0xFFFFu), (s > 65) ? 65u : (unsigned)s);
+    r = round_shift_hi(exp2_mant_q63((uint32_t)x & 0xFFFFu), (s > 65) ? 65u : (unsigned)s); /* s >= 33 */
     return (r > (uint64_t)INT32_MAX) ? INT32_MAX : (int32_t)r;
 }

@@ -48,8 +48,10 @@ static uint64_t mag64(int64_t v)
  * clang's -fsanitize=integer): carries and borrows are found by comparison,
  * shifted words are masked first. */
 
-/* Exact a * b from four 32x32 -> 64 products; mid < 3 * 2^32 cannot wrap. */
-static u128_t u128_mul(uint64_t a, uint64_t b)
+/* Exact a * b from four 32x32 -> 64 products; mid < 3 * 2^32 cannot wrap.
+ * Inlined where the struct would otherwise go through memory (hot callers);
+ * u128_mul is the out-of-line copy for the others. */
+static inline u128_t u128_mul_inline(uint64_t a, uint64_t b)
 {
     const uint64_t m32 = UINT64_C(0xFFFFFFFF);
     uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
@@ -58,6 +60,24 @@ static u128_t u128_mul(uint64_t a, uint64_t b)
     u128_t r;
     r.lo = ((mid & m32) << 32) | (p00 & m32);
     r.hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
+    return r;
+}
+
+static u128_t u128_mul(uint64_t a, uint64_t b)
+{
+    return u128_mul_inline(a, b);
+}
+
+/* Exact a * b for a 32-bit a: two 32x32 -> 64 products; the upper partial
+ * sum a * b1 + carry is at most (2^32 - 1) * 2^32 < 2^64. */
+static inline u128_t u128_mul_u32(uint32_t a, uint64_t b)
+{
+    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
+    uint64_t lo = (uint64_t)a * (uint32_t)(b & m32);
+    uint64_t up = (uint64_t)a * (uint32_t)(b >> 32) + (lo >> 32);
+    u128_t r;
+    r.lo = ((up & m32) << 32) | (lo & m32);
+    r.hi = up >> 32;
     return r;
 }
 
@@ -143,59 +163,83 @@ static u128_t u128_pow2(unsigned s)
 /* wide arithmetic                                                            */
 /* ------------------------------------------------------------------------ */
 
+/* v in int32: the high word is the sign extension of the low word (a
+ * test on the words, cheaper than two 64-bit compares). */
 static int fits32(int64_t v)
 {
-    return v >= INT32_MIN && v <= INT32_MAX;
+    uint64_t u = (uint64_t)v;
+    return (uint32_t)(u >> 32) == 0u - ((uint32_t)(u & UINT64_C(0xFFFFFFFF)) >> 31);
 }
 
 /*
- * round(a * b / 2^s) for int64 a and int32 b: two 32x32 products.
- * a = ah 2^32 + al (al in [0, 2^32)), a b = H 2^32 + ll with
- * H = ah b + floor(al b / 2^32) (|H| <= 2^62 + 2^31) and ll in [0, 2^32).
- * s <= 32: H 2^(32-s) + round-half-up of ll / 2^s (H 2^32 is a multiple
- * of 2^s); s > 32: round(H / 2^(s-32)) (ll < 2^32 cannot move the floor of
- * a multiple of 2^32 plus the bias 2^(s-1)).  Saturating.
+ * round(a * b / 2^s) for int64 a and int32 b, saturated: two 32x32 -> 64
+ * products of the magnitudes, P = |a| |b| = H 2^32 + L (H < 2^62 + 2^32,
+ * L < 2^32), and the sign applied last.  Ties toward +infinity: the
+ * magnitude gets the bias 2^(s-1), or 2^(s-1) - 1 when the product is
+ * negative.  s <= 32: with the bias added to L (carry into H),
+ * round = H 2^(32-s) + L / 2^s, at least 2^63 exactly when H >= 2^(31+s)
+ * (saturated; a negative 2^63 is INT64_MIN either way).  32 < s < 96: only
+ * the carry of L plus the bias's low word reaches bit s, the result is
+ * below 2^62.  s >= 96: |a b| < 2^94 rounds to 0.
  */
 static int64_t mul64x32(int64_t a, int32_t b, unsigned s)
 {
-    int64_t ah = pfx_mixture_shr_floor(a, 32u);
-    int64_t lo = (int64_t)((uint64_t)a & UINT64_C(0xFFFFFFFF)) * b; /* |.| < 2^63 */
-    int64_t h = ah * b + pfx_mixture_shr_floor(lo, 32u);
-    uint64_t ll = (uint64_t)lo & UINT64_C(0xFFFFFFFF);
-    if (s > 32u) {
-        return pfx_mixture_shr_round_var(h, s - 32u);
-    }
+    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
+    int negative = (a < 0) != (b < 0);
+    uint64_t ma = mag64(a);
+    uint32_t mb = (b < 0) ? (uint32_t)(-(b + 1)) + 1u : (uint32_t)b;
+    uint64_t lo = (uint64_t)(uint32_t)(ma & m32) * mb;
+    uint64_t h = (uint64_t)(uint32_t)(ma >> 32) * mb + (lo >> 32); /* < 2^62 + 2^32 */
+    uint32_t l = (uint32_t)(lo & m32), hh, hl;
+    uint64_t q;
     if (s == 0u) {
-        return fits32(h) ? h * (INT64_C(1) << 32) + (int64_t)ll : (h < 0 ? INT64_MIN : INT64_MAX);
+        if (h > (uint64_t)INT32_MAX) {
+            return negative ? INT64_MIN : INT64_MAX;
+        }
+        q = (h << 32) | l;
+    } else if (s <= 32u) {
+        /* 32-bit words: no variable 64-bit shift */
+        uint64_t t = (uint64_t)l + ((UINT32_C(1) << (s - 1u)) - (negative ? 1u : 0u)); /* < 2^33 */
+        h += t >> 32;
+        l = (uint32_t)(t & m32);
+        if (s == 32u) {
+            q = h;
+        } else {
+            hh = (uint32_t)(h >> 32);
+            hl = (uint32_t)(h & m32);
+            if ((hh >> (s - 1u)) != 0u) { /* h >= 2^(31+s) */
+                return negative ? INT64_MIN : INT64_MAX;
+            }
+            q = ((uint64_t)((hh << (32u - s)) | (hl >> s)) << 32) |
+                (((hl & (UINT32_MAX >> (32u - s))) << (32u - s)) | (l >> s));
+        }
+    } else if (s < 96u) {
+        /* k = s - 32: floor((h' + 2^(k-1) [- 1]) / 2^k), h' = h plus the
+         * carry of the low word (l + 2^32 - 1 carries iff l != 0, negative
+         * only), as floor((floor(h'' / 2^(k-1)) + 1) / 2) with h'' = h' [- 1]. */
+        unsigned k = s - 32u;
+        if (negative) {
+            h += (l != 0u) ? 1u : 0u;
+            if (h == 0u) {
+                return 0;
+            }
+            h -= 1u;
+        }
+        q = ((h >> (k - 1u)) + 1u) >> 1;
+    } else {
+        return 0;
     }
-    /* |h 2^(32-s)| < 2^63 exactly when |h| < 2^(31+s) (always for s = 32);
-     * the added rounding term (<= 2^(32-s)) saturates with the sum. */
-    if (s < 32u && (h >= (INT64_C(1) << (31u + s)) || h < -(INT64_C(1) << (31u + s)))) {
-        return (h < 0) ? INT64_MIN : INT64_MAX;
-    }
-    return pfx_mixture_add_sat(h * (INT64_C(1) << (32u - s)), (int64_t)((ll + (UINT64_C(1) << (s - 1u))) >> s));
+    return negative ? -(int64_t)q : (int64_t)q;
 }
 
-/* Scaling: Qa * Qb >> s.  Overflow: the product is exact (two 32x32
- * products when one factor fits 32 bits, else four: 128 bits, < 2^126);
- * the rounding bias (< 2^127) cannot carry out; the result saturates to
- * int64.  Rounding: once, to nearest, ties toward +infinity (a negative
- * magnitude gets 2^(s-1) - 1 as its bias). */
-int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
+/* Both factors beyond int32: four 32x32 products (out of line, so that the
+ * dispatch below stays a leaf with tail calls). */
+PFX_NOINLINE static int64_t mul64x64(int64_t a, int64_t b, unsigned s)
 {
     u128_t p;
     int negative;
-    if (fits32(b)) {
-        if (fits32(a)) {
-            return pfx_mixture_shr_round_var(a * b, s); /* |a b| <= 2^62 */
-        }
-        return mul64x32(a, (int32_t)b, s);
-    }
-    if (fits32(a)) {
-        return mul64x32(b, (int32_t)a, s);
-    }
     negative = (a < 0) != (b < 0); /* neither is 0 here */
-    p = u128_mul(mag64(a), mag64(b));
+    p = u128_mul_inline(mag64(a), mag64(b));
     if (s >= 128u) {
         return 0; /* |a b| / 2^128 < 1/4 */
     }
@@ -218,9 +262,36 @@ int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
     return -(int64_t)p.lo;
 }
 
+/* Scaling: Qa * Qb >> s.  Overflow: the product is exact (two 32x32
+ * products when one factor fits 32 bits, else four: 128 bits, < 2^126);
+ * the rounding bias (< 2^127) cannot carry out; the result saturates to
+ * int64.  Rounding: once, to nearest, ties toward +infinity (a negative
+ * magnitude gets 2^(s-1) - 1 as its bias). */
+/* Both factors in int32: |a b| <= 2^62, one rounding (out of line like
+ * mul64x64: the dispatch below then needs no stack frame of its own). */
+PFX_NOINLINE static int64_t mul32x32(int32_t a, int32_t b, unsigned s)
+{
+    return pfx_mixture_shr_round_var((int64_t)a * b, s);
+}
+
+int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
+{
+    int fa = fits32(a), fb = fits32(b);
+    if (fa && fb) {
+        return mul32x32((int32_t)a, (int32_t)b, s);
+    }
+    if (fb) {
+        return mul64x32(a, (int32_t)b, s);
+    }
+    if (fa) {
+        return mul64x32(b, (int32_t)a, s);
+    }
+    return mul64x64(a, b, s);
+}
+
 int pfx_mixture_cmp_products(uint64_t a, uint64_t b, uint64_t c, uint64_t d)
 {
-    return u128_cmp(u128_mul(a, b), u128_mul(c, d));
+    return u128_cmp(u128_mul_inline(a, b), u128_mul_inline(c, d));
 }
 
 /* x is rounded to its top 32 bits (round-half-up of the dropped part; a
@@ -291,15 +362,20 @@ int64_t pfx_mixture_lin_q40(int64_t x)
  * det >= 1 (Q40).  pxx, pyy <= 2^31 - 1: the products fit in int64. */
 pfx_status_t pfx_mixture_store_cov(int64_t pxx, int64_t pxy, int64_t pyy, pfx_component_t *out)
 {
-    int64_t a, b, c;
+    int32_t a, b, c;
+    uint32_t mb;
+    uint64_t ac1;
     if (pxx <= 0 || pyy <= 0) {
         return PFX_ERR_DEGENERATE;
     }
-    a = (pxx > INT32_MAX) ? INT32_MAX : pxx;
-    c = (pyy > INT32_MAX) ? INT32_MAX : pyy;
-    b = pfx_mixture_clamp(pxy, -(int64_t)INT32_MAX, INT32_MAX);
-    if (b * b > a * c - 1) {
-        int64_t m = (int64_t)pfx_fixed_isqrt_u64((uint64_t)(a * c - 1));
+    a = (pxx > INT32_MAX) ? INT32_MAX : (int32_t)pxx;
+    c = (pyy > INT32_MAX) ? INT32_MAX : (int32_t)pyy;
+    b = (int32_t)pfx_mixture_clamp(pxy, -(int64_t)INT32_MAX, INT32_MAX);
+    /* a, c in [1, 2^31), |b| < 2^31: 32x32 -> 64 products of the magnitudes */
+    mb = (b < 0) ? (uint32_t)(-b) : (uint32_t)b;
+    ac1 = (uint64_t)(uint32_t)a * (uint32_t)c - 1u;
+    if ((uint64_t)mb * mb > ac1) {
+        int32_t m = (int32_t)pfx_fixed_isqrt_u64(ac1); /* < 2^31 */
         b = (b < 0) ? -m : m;
     }
     out->pxx = (pfx_area_q20_t)a;
@@ -333,50 +409,47 @@ pfx_status_t pfx_mixture_check(const pfx_component_t *c, uint32_t n)
 
 /* Seed (relative error < 2^-8, the middle of a 1/128-wide interval of M)
  * and three Newton steps y <- y (3 - M y^2) / 2, each three 32x32 -> 64
- * multiplies: y^2 (Q30, <= 2^32), M y^2 (Q30, ~2^30, product < 2^63),
+ * multiplies: y^2 (Q30, < 2^32 as y < 2^31), M y^2 (Q30, ~2^30),
  * y (3 - M y^2) / 2 (Q30).  The error is squared by each step; after three
- * only the truncations remain: about 2^-29 relative. */
+ * only the truncations remain: about 2^-29 relative.  (y < 2^31 and
+ * M y^2 < 3 * 2^30 at every step: checked over every m >> 32, so the 32-bit
+ * words give the values of the 64-bit forms.) */
 uint64_t pfx_mixture_rsqrt_q30(uint64_t m)
 {
-    uint64_t m32 = m >> 32; /* M in Q32, [2^30, 2^32) */
-    uint64_t y;
+    uint32_t m32 = (uint32_t)(m >> 32); /* M in Q32, [2^30, 2^32) */
+    uint32_t y, t, u;
     unsigned it;
     if (m < (UINT64_C(1) << 62)) {
         return 0u; /* outside the contract */
     }
-    y = (uint64_t)k_rsqrt_seed_q15[(m >> 57) - 32u] << 15;
+    y = (uint32_t)k_rsqrt_seed_q15[(m32 >> 25) - 32u] << 15;
     for (it = 0u; it < 3u; ++it) {
-        uint64_t t = (y * y) >> 30;
-        uint64_t u = (m32 * t) >> 32;
-        y = (y * ((UINT64_C(3) << 30) - u)) >> 31;
+        t = (uint32_t)(((uint64_t)y * y) >> 30);
+        u = (uint32_t)(((uint64_t)m32 * t) >> 32);
+        y = (uint32_t)(((uint64_t)y * ((UINT32_C(3) << 30) - u)) >> 31);
     }
     return y;
 }
 
-/* sqrt(m) ~ (m / 2^32) * y / 2^30 for m = x 2^z (z even, m >= 2^62), then
- * shifted back by z/2: within a few units of floor(sqrt(x)); two bounded
- * correction loops make it floor(sqrt(x)) exactly (r <= 2^32 - 1 so r^2
- * never wraps), and the rounding is exact: sqrt(x) is nearer r + 1 iff
- * x - r^2 > r. */
+/* The same function as pfx_fixed_isqrt_round_u64 (seed, two Newton steps,
+ * exact final step there). */
 uint64_t pfx_mixture_isqrt_round(uint64_t x)
 {
-    unsigned z, k;
-    uint64_t r;
-    if (x == 0u) {
-        return 0u;
+    return pfx_fixed_isqrt_round_u64(x);
+}
+
+/* max_eig when (a-d)^2 + 4 b^2 may need 128 bits (out of line: rare). */
+PFX_NOINLINE static pfx_area_q20_t max_eig_wide(int64_t a, int64_t b, int64_t d)
+{
+    int64_t root;
+    u128_t t = u128_add(u128_mul(mag64(a - d), mag64(a - d)), u128_shl(u128_mul(mag64(b), mag64(b)), 2u));
+    if (t.hi == 0u) {
+        root = (int64_t)pfx_fixed_isqrt_round_u64(t.lo); /* <= 2^32 */
+    } else {
+        t = u128_shr(t, 2u);
+        root = 2 * (int64_t)pfx_fixed_isqrt_round_u64(t.hi == 0u ? t.lo : UINT64_MAX);
     }
-    z = pfx_mixture_clz64(x) & ~1u;
-    r = ((((x << z) >> 32) * pfx_mixture_rsqrt_q30(x << z)) >> 30) >> (z / 2u);
-    if (r > UINT32_MAX) {
-        r = UINT32_MAX;
-    }
-    for (k = 0u; k < 16u && r * r > x; ++k) {
-        --r;
-    }
-    for (k = 0u; k < 16u && r < UINT32_MAX && (r + 1u) * (r + 1u) <= x; ++k) {
-        ++r;
-    }
-    return r + ((x - r * r > r) ? 1u : 0u);
+    return pfx_mixture_sat32(pfx_mixture_shr_round(a + d + root, 1u));
 }
 
 /* Scaling: Q20 in, Q20 out.  t = (a-c)^2 + 4 b^2 (Q40) is exact in 128
@@ -385,8 +458,7 @@ uint64_t pfx_mixture_isqrt_round(uint64_t x)
  * (a + c + sqrt t) / 2 rounds once more: error <= 1 LSB. */
 pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c)
 {
-    int64_t a, b, d, root;
-    u128_t t;
+    int64_t a, b, d;
     if (c == NULL) {
         return 0;
     }
@@ -395,18 +467,18 @@ pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c)
     b = c->pxy;
     if (a - d > -(INT64_C(1) << 31) && a - d < (INT64_C(1) << 31) && b > -(INT64_C(1) << 30) &&
         b < (INT64_C(1) << 30)) {
-        /* the usual case, in 64 bits: (a-d)^2 < 2^62, 4 b^2 < 2^62 (the same t) */
-        uint64_t t64 = (uint64_t)((a - d) * (a - d)) + 4u * (uint64_t)(b * b);
-        return pfx_mixture_sat32(pfx_mixture_shr_round(a + d + (int64_t)pfx_mixture_isqrt_round(t64), 1u));
+        /* the usual case: a-d and b in int32, two 32x32 products, (a-d)^2 < 2^62,
+         * 4 b^2 < 2^62 (the same t) */
+        int32_t ad = (int32_t)(a - d), b32 = (int32_t)b;
+        uint64_t t64 = (uint64_t)((int64_t)ad * ad) + 4u * (uint64_t)((int64_t)b32 * b32);
+        int64_t v = a + d + (int64_t)pfx_fixed_isqrt_round_u64(t64); /* in [-2^32, 2^33) */
+        if (v >= 0) {
+            uint64_t q = ((uint64_t)v + 1u) >> 1; /* round(v / 2), ties up */
+            return (q > (uint64_t)INT32_MAX) ? INT32_MAX : (pfx_area_q20_t)q;
+        }
+        return pfx_mixture_sat32(pfx_mixture_shr_round(v, 1u));
     }
-    t = u128_add(u128_mul(mag64(a - d), mag64(a - d)), u128_shl(u128_mul(mag64(b), mag64(b)), 2u));
-    if (t.hi == 0u) {
-        root = (int64_t)pfx_mixture_isqrt_round(t.lo); /* <= 2^32 */
-    } else {
-        t = u128_shr(t, 2u);
-        root = 2 * (int64_t)pfx_mixture_isqrt_round(t.hi == 0u ? t.lo : UINT64_MAX);
-    }
-    return pfx_mixture_sat32(pfx_mixture_shr_round(a + d + root, 1u));
+    return max_eig_wide(a, b, d);
 }
 
 /* ------------------------------------------------------------------------ */
@@ -724,6 +796,18 @@ pfx_status_t pfx_mixture_merge(const pfx_component_t *a, const pfx_component_t *
     return st;
 }
 
+/* |d| for d = pfx_mixture_offset(a, b) (<= 2^30), formed from a and b in
+ * 32-bit arithmetic (b - a mod 2^32 is d whenever d is not clamped), so
+ * that the compiler keeps the products of it 32x32 -> 64. */
+static inline uint32_t offset_mag32(int32_t a, int32_t b, int64_t d)
+{
+    uint32_t u = (uint32_t)b - (uint32_t)a;
+    if (d == OFFSET_LIMIT || d == -OFFSET_LIMIT) {
+        return (uint32_t)OFFSET_LIMIT;
+    }
+    return (d < 0) ? 0u - u : u;
+}
+
 /*
  * Mahalanobis gate, division-free and exact: with S = Pa + Pb (Q20, int64,
  * entries < 2^32) and d = mu_b - mu_a (Q10, clamped to +-2^30),
@@ -735,7 +819,8 @@ pfx_status_t pfx_mixture_merge(const pfx_component_t *a, const pfx_component_t *
 int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, pfx_ratio_q16_t gate)
 {
     int64_t sa, sb, sc, dx, dy;
-    uint64_t ac, bb, det, dd, lim;
+    uint32_t sa32, sb32, sc32, msb, mdx, mdy;
+    uint64_t ac, bb, det, dx2, dy2, dd, lim, dxy;
     u128_t lhs, cross, rhs;
     if (a == NULL || b == NULL || gate < 0) {
         return 0;
@@ -746,21 +831,34 @@ int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, 
     if (sa < 0 || sc < 0) {
         return 0;
     }
-    ac = (uint64_t)sa * (uint64_t)sc;
-    bb = mag64(sb) * mag64(sb);
+    /* The same sums mod 2^32, formed in 32 bits so that the products below
+     * are single 32x32 -> 64 multiplies: sa, sc are in [0, 2^32) (equal to
+     * sa32, sc32), |sb| <= 2^32 is msb except for |sb| = 2^32 (msb = 0: bb
+     * wraps to 0 exactly as mag64(sb)^2 does); |dx|, |dy| <= 2^30. */
+    sa32 = (uint32_t)a->pxx + (uint32_t)b->pxx;
+    sb32 = (uint32_t)a->pxy + (uint32_t)b->pxy;
+    sc32 = (uint32_t)a->pyy + (uint32_t)b->pyy;
+    msb = (sb < 0) ? 0u - sb32 : sb32;
+    ac = (uint64_t)sa32 * sc32;
+    bb = (uint64_t)msb * msb;
     if (ac <= bb) {
         return 0; /* singular: the reference's inverse is inf/NaN, never within */
     }
     det = ac - bb;
     dx = pfx_mixture_offset(a->x, b->x);
     dy = pfx_mixture_offset(a->y, b->y);
-    dd = (uint64_t)(dx * dx) + (uint64_t)(dy * dy); /* <= 2^61 */
-    lim = (((uint64_t)gate * (uint64_t)(sa + sc)) >> 16) + 1u; /* gate < 2^31, sa + sc < 2^33 */
+    mdx = offset_mag32(a->x, b->x, dx);
+    mdy = offset_mag32(a->y, b->y, dy);
+    dx2 = (uint64_t)mdx * mdx;
+    dy2 = (uint64_t)mdy * mdy;
+    dd = dx2 + dy2; /* <= 2^61 */
+    lim = (((uint64_t)(uint32_t)gate * sa32 + (uint64_t)(uint32_t)gate * sc32) >> 16) + 1u; /* each < 2^63 */
     if (dd > lim) {
         return 0;
     }
-    lhs = u128_add(u128_mul((uint64_t)sc, (uint64_t)(dx * dx)), u128_mul((uint64_t)sa, (uint64_t)(dy * dy)));
-    cross = u128_mul(2u * mag64(sb), mag64(dx) * mag64(dy));
+    lhs = u128_add(u128_mul_u32(sc32, dx2), u128_mul_u32(sa32, dy2));
+    dxy = (uint64_t)mdx * mdy; /* <= 2^60 */
+    cross = (sb < -(int64_t)UINT32_MAX) ? u128_mul(2u * mag64(sb), dxy) : u128_mul_u32(msb, 2u * dxy);
     if (sb != 0 && dx != 0 && dy != 0 && ((sb < 0) + (dx < 0) + (dy < 0)) % 2 == 0) {
         /* sb dx dy > 0: the cross term is subtracted (exactly >= 0 for PSD S) */
         if (u128_cmp(cross, lhs) > 0) {
@@ -772,7 +870,7 @@ int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, 
     } else {
         lhs = u128_add(lhs, cross);
     }
-    rhs = u128_mul((uint64_t)gate, det);
+    rhs = u128_mul_u32((uint32_t)gate, det);
     return u128_cmp(u128_shl(lhs, 16u), rhs) <= 0;
 }
 

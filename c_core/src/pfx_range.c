@@ -91,6 +91,60 @@ static uint64_t mag64(int64_t v)
 }
 
 /*
+ * The hot loops' multiplies with the values of pfx_mixture_mul32, _mul and
+ * _mul_recip_inline, but an int32 x int32 product formed as such (one
+ * SMULL, where int64 operands make the compiler form a 64 x 64 product),
+ * and, for |x| <= 2^62, a rounding shift that needs no carry test:
+ * x + 2^(s-1) cannot overflow, and floor(y / 2^s) is taken from y + 2^63
+ * (the sign bit flipped) as in pfx_mixture_shr_round.  1 <= s <= 62.
+ */
+static inline int64_t round_small(int64_t x, unsigned s)
+{
+#if defined(PFX_VARIANT_TIES_DOWN)
+    return pfx_mixture_shr_round(x, s); /* the test-only rounding variant */
+#else
+    uint64_t u = (uint64_t)(x + (INT64_C(1) << (s - 1u))) ^ (UINT64_C(1) << 63);
+    return (int64_t)(u >> s) - (int64_t)(UINT64_C(1) << (63u - s));
+#endif
+}
+
+static inline int64_t mul32_fast(int32_t a, int32_t b, unsigned s)
+{
+    return round_small((int64_t)a * b, s);
+}
+
+static inline int64_t mul_fast(int64_t a, int64_t b, unsigned s)
+{
+    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
+        return round_small((int64_t)(int32_t)a * (int32_t)b, s);
+    }
+    return pfx_mixture_mul64(a, b, s);
+}
+
+/* pfx_mixture_shr_round_var(x, s) for |x| <= 2^62: floor(floor(x / 2^(s-1)) / 2)
+ * + its lowest bit is floor((x + 2^(s-1)) / 2^s) (no overflow), one
+ * variable shift (floor through x ^ m, m all ones for x < 0). */
+static inline int64_t round_var_small(int64_t x, unsigned s)
+{
+    uint64_t m;
+    int64_t y;
+    if (s == 0u || s > 62u) {
+        return pfx_mixture_shr_round_var(x, s);
+    }
+    y = x + (INT64_C(1) << (s - 1u));
+    m = (y < 0) ? UINT64_MAX : 0u;
+    return (int64_t)((((uint64_t)y ^ m) >> s) ^ m);
+}
+
+static inline int64_t mul_recip_fast(int64_t num, const pfx_recip64_t *r, unsigned frac)
+{
+    if (r->shift >= frac && num >= INT32_MIN && num <= INT32_MAX) {
+        return round_var_small((int64_t)(int32_t)num * r->mant, r->shift - frac);
+    }
+    return pfx_mixture_mul_recip(num, r, frac);
+}
+
+/*
  * Unit vector of (dx, dy) in Q30 and its length in the unit of d.
  * Scaling: d is brought to 30 significant bits (exact left shift, or one
  * rounding right shift): n2 = dx'^2 + dy'^2 in [2^58, 2^61].  n2 is shifted
@@ -113,26 +167,39 @@ static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_
         return;
     }
     b = 64u - pfx_mixture_clz64(m);
-    if (b > 30u) {
+    if (b > 62u) {
         nx = pfx_mixture_shr_round_var(dx, b - 30u);
         ny = pfx_mixture_shr_round_var(dy, b - 30u);
+    } else if (b > 30u) {
+        nx = round_var_small(dx, b - 30u); /* |d| < 2^62 */
+        ny = round_var_small(dy, b - 30u);
     } else {
-        nx = dx * (INT64_C(1) << (30u - b)); /* |nx| < 2^30 */
-        ny = dy * (INT64_C(1) << (30u - b));
+        nx = (int32_t)dx * (INT32_C(1) << (30u - b)); /* |nx| < 2^30: in int32 */
+        ny = (int32_t)dy * (INT32_C(1) << (30u - b));
     }
-    n2 = (uint64_t)(nx * nx + ny * ny); /* [2^58, 2^61] */
+    n2 = (uint64_t)((int64_t)(int32_t)nx * (int32_t)nx + (int64_t)(int32_t)ny * (int32_t)ny); /* [2^58, 2^61] */
     z = (n2 >= (UINT64_C(1) << 60)) ? 2u : 4u; /* the even shift to [2^62, 2^64): clz64(n2) & ~1 */
     y = pfx_mixture_rsqrt_q30(n2 << z); /* [2^62, 2^64): no bit is lost */
-    /* 1/sqrt(n2) = y 2^(z/2 - 32) / 2^30: u = d' y / 2^31 (z = 2) or / 2^30 (z = 4); |nx y| <= 2^61 */
-    if (z == 2u) {
+    /* 1/sqrt(n2) = y 2^(z/2 - 32) / 2^30: u = d' y / 2^31 (z = 2) or / 2^30 (z = 4); |nx y| <= 2^61
+     * (int32 products when y < 2^31, its usual range; the same values either way) */
+    if (y <= (uint64_t)INT32_MAX) {
+        int64_t px = (int64_t)(int32_t)nx * (int32_t)y, py = (int64_t)(int32_t)ny * (int32_t)y;
+        if (z == 2u) {
+            *ux = pfx_mixture_sat32(round_small(px, 31u));
+            *uy = pfx_mixture_sat32(round_small(py, 31u));
+        } else {
+            *ux = pfx_mixture_sat32(round_small(px, 30u));
+            *uy = pfx_mixture_sat32(round_small(py, 30u));
+        }
+    } else if (z == 2u) {
         *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 31u));
         *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, 31u));
     } else {
         *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 30u));
         *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, 30u));
     }
-    r = pfx_mixture_shr_round(nx * *ux + ny * *uy, 30u); /* rho' in the unit of nx */
-    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : pfx_mixture_shr_round_var(r, 30u - b);
+    r = round_small((int64_t)(int32_t)nx * *ux + (int64_t)(int32_t)ny * *uy, 30u); /* rho' in the unit of nx */
+    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : round_var_small(r, 30u - b); /* |r| <= 2^31 */
 }
 
 /* ------------------------------------------------------------------------ */
@@ -170,7 +237,7 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
     for (k = 0u; k < nb; ++k) {
         const pfx_component_t *c = &neighbour->comp[k];
         pfx_ring_t *g = &rings[k];
-        g->log2w = pfx_fixed_add_sat(c->log2w, los);
+        g->log2w = pfx_mixture_sat32((int64_t)c->log2w + los); /* pfx_fixed_add_sat */
         g->cx = c->x;
         g->cy = c->y;
         g->radius = range;
@@ -178,7 +245,7 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
         if (robust) {
             int64_t bias = p->blocked_bias > 0 ? p->blocked_bias : 0;
             pfx_ring_t *h = &rings[nb + k];
-            h->log2w = pfx_fixed_add_sat(c->log2w, nlos);
+            h->log2w = pfx_mixture_sat32((int64_t)c->log2w + nlos);
             h->cx = c->x;
             h->cy = c->y;
             h->radius = (pfx_len_q10_t)(((int64_t)range - bias > 0) ? (int64_t)range - bias : 0);
@@ -255,19 +322,19 @@ static void arc_shape(pfx_len_q10_t r, pfx_area_q20_t var, uint32_t stride, cons
  * each sum <= 2^62, one rounding to Q20. */
 static pfx_status_t arc_cov(int32_t var, int32_t t2, uint32_t k, pfx_component_t *out)
 {
-    int64_t c = dir_cos(k), s = dir_sin(k);
-    int64_t c2 = pfx_mixture_shr_round(c * c, 30u);
-    int64_t s2 = pfx_mixture_shr_round(s * s, 30u);
-    int64_t cs = pfx_mixture_shr_round(c * s, 30u);
-    return pfx_mixture_store_cov(pfx_mixture_shr_round(var * c2 + t2 * s2, 30u),
-                                 pfx_mixture_shr_round(((int64_t)var - t2) * cs, 30u),
-                                 pfx_mixture_shr_round(var * s2 + t2 * c2, 30u), out);
+    int32_t c = dir_cos(k), s = dir_sin(k);
+    int32_t c2 = (int32_t)mul32_fast(c, c, 30u); /* [0, 2^30] */
+    int32_t s2 = (int32_t)mul32_fast(s, s, 30u);
+    int32_t cs = (int32_t)mul32_fast(c, s, 30u); /* |.| <= 2^29 */
+    return pfx_mixture_store_cov(round_small((int64_t)var * c2 + (int64_t)t2 * s2, 30u),
+                                 round_small(((int64_t)var - t2) * cs, 30u),
+                                 round_small((int64_t)var * s2 + (int64_t)t2 * c2, 30u), out);
 }
 
 /* Q20 * Q30 -> Q10, rounded once (mul64: radial may exceed 2^31). */
 static int64_t along(int64_t radial_q20, int32_t u)
 {
-    return pfx_mixture_mul(radial_q20, u, 40u);
+    return mul_fast(radial_q20, u, 40u);
 }
 
 pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx_len_q10_t bounds[4],
@@ -298,18 +365,33 @@ pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx
         uint32_t stride = pfx_range_stride(g->radius, p->ring_arc_spacing, per_ring);
         arc_shape_t a;
         int64_t logw;
+        uint32_t kept[PFX_RING_DIRECTIONS / 64u] = {0u, 0u, 0u, 0u}; /* arcs kept in the first half */
+        uint32_t twin = m; /* out index of the next kept first-half arc */
         arc_shape(g->radius, g->var, stride, p, &a);
         logw = (int64_t)g->log2w + a.log_len - log_area;
         for (dir = 0u; dir < PFX_RING_DIRECTIONS; dir += stride) {
             int64_t x = (int64_t)g->cx + along(a.radial, dir_cos(dir));
             int64_t y = (int64_t)g->cy + along(a.radial, dir_sin(dir));
+            uint32_t half = dir & (PFX_RING_DIRECTIONS / 2u - 1u);
+            int twin_kept = dir >= PFX_RING_DIRECTIONS / 2u && ((kept[half >> 5] >> (half & 31u)) & 1u) != 0u;
             pfx_component_t *o;
             if (x < bounds[0] || x > bounds[2] || y < bounds[1] || y > bounds[3] || m >= PFX_MAX_CANDIDATES) {
+                twin += (uint32_t)twin_kept;
                 continue;
             }
             o = &out[m];
-            if (arc_cov(g->var, a.t2, dir, o) != PFX_OK) {
+            if (twin_kept) {
+                /* direction dir - 128: the table is odd, cos(k + 128) = -cos k (the same for sin), so
+                 * arc_cov's squares and product, and so the covariance, are those of that arc */
+                o->pxx = out[twin].pxx;
+                o->pxy = out[twin].pxy;
+                o->pyy = out[twin].pyy;
+                ++twin;
+            } else if (arc_cov(g->var, a.t2, dir, o) != PFX_OK) {
                 continue;
+            }
+            if (dir < PFX_RING_DIRECTIONS / 2u) {
+                kept[dir >> 5] |= UINT32_C(1) << (dir & 31u);
             }
             o->x = (pfx_len_q10_t)x; /* inside the box: in range */
             o->y = (pfx_len_q10_t)y;
@@ -337,20 +419,22 @@ pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx
 typedef struct {
     int32_t hx, hy;
     int64_t rho;
+    int32_t dx, dy; /* the Q10 offset centre - mean (pfx_mixture_offset: |.| <= 2^30) */
 } lin_t;
 
 static void first_lin(const pfx_component_t *c, const pfx_ring_t *g, lin_t *l)
 {
-    unit_vector(pfx_mixture_offset(g->cx, c->x) * 1024, pfx_mixture_offset(g->cy, c->y) * 1024, &l->hx, &l->hy,
-                &l->rho);
+    l->dx = (int32_t)pfx_mixture_offset(g->cx, c->x);
+    l->dy = (int32_t)pfx_mixture_offset(g->cy, c->y);
+    unit_vector((int64_t)l->dx * 1024, (int64_t)l->dy * 1024, &l->hx, &l->hy, &l->rho);
 }
 
 /* near centre: rho^2 <= 4 lambda_max (Q20, exact squares). */
-static int near_centre(const pfx_component_t *c, int32_t lam, const pfx_ring_t *g)
+static int near_centre(const pfx_component_t *c, int64_t lam, const pfx_ring_t *g)
 {
     int64_t dx = pfx_mixture_offset(g->cx, c->x);
     int64_t dy = pfx_mixture_offset(g->cy, c->y);
-    return dx * dx + dy * dy <= 4 * (int64_t)lam; /* <= 2^61 */
+    return dx * dx + dy * dy <= 4 * lam; /* <= 2^61; lam <= 2^32 */
 }
 
 /*
@@ -368,17 +452,17 @@ static int64_t bend_limit(const pfx_ring_t *g, uint32_t sd, const pfx_params_t *
 static int bends(const pfx_component_t *c, const lin_t *l, int64_t limit)
 {
     int32_t tx = -l->hy, ty = l->hx; /* |h| <= 2^30: no overflow */
-    int64_t ptx = pfx_mixture_mul32(c->pxx, tx, 20u) + pfx_mixture_mul32(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
-    int64_t pty = pfx_mixture_mul32(c->pxy, tx, 20u) + pfx_mixture_mul32(c->pyy, ty, 20u);
-    int64_t st2 = pfx_mixture_mul(tx, ptx, 30u) + pfx_mixture_mul(ty, pty, 30u);
+    int64_t ptx = mul32_fast(c->pxx, tx, 20u) + mul32_fast(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
+    int64_t pty = mul32_fast(c->pxy, tx, 20u) + mul32_fast(c->pyy, ty, 20u);
+    int64_t st2 = mul_fast(tx, ptx, 30u) + mul_fast(ty, pty, 30u);
     return 2 * st2 > limit;
 }
 
+/* round(sqrt(var)) in Q20 (var Q20 shifted by 20, < 2^51): the value of
+ * pfx_fixed_sqrt_q(var, 20, 20), from the faster exact pfx_mixture_isqrt_round. */
 static uint32_t ring_sd(const pfx_ring_t *g)
 {
-    uint32_t sd;
-    (void)pfx_fixed_sqrt_q((uint32_t)(g->var > 0 ? g->var : 0), 20u, 20u, &sd);
-    return sd;
+    return (uint32_t)pfx_mixture_isqrt_round((uint64_t)(g->var > 0 ? g->var : 0) << 20);
 }
 
 int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_params_t *p)
@@ -394,6 +478,33 @@ int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_
     return bends(c, &l, bend_limit(g, ring_sd(g), p));
 }
 
+/*
+ * pfx_mixture_mul(a, b, sh) for 33 <= sh <= 63 with a in int32 and any b,
+ * without the general 64x64 product: b = bh 2^32 + bl (bh = floor(b / 2^32)
+ * in int32, 0 <= bl < 2^32), T = a bh (|T| <= 2^62), U = a bl (|U| < 2^63).
+ * round(a b / 2^sh) = floor((T 2^32 + U + 2^(sh-1)) / 2^sh), and as
+ * 2^(sh-1) is a multiple of 2^32 and U = floor(U / 2^32) 2^32 + (U mod 2^32)
+ * that is floor((T + floor(U / 2^32) + 2^(sh-33)) / 2^(sh-32)) exactly
+ * (ties toward +infinity, as mul64; |result| < 2^61: no saturation).
+ */
+static inline int64_t mul_i32_wide(int64_t a, int64_t b, unsigned sh)
+{
+    int64_t bh, t, u;
+    if (a < INT32_MIN || a > INT32_MAX || (b >= INT32_MIN && b <= INT32_MAX)) {
+        return pfx_mixture_mul(a, b, sh);
+    }
+    bh = pfx_mixture_shr_floor(b, 32u);
+    t = (int64_t)(int32_t)a * (int32_t)bh;
+    u = (int64_t)(int32_t)a * (int64_t)(uint32_t)((uint64_t)b & UINT64_C(0xFFFFFFFF));
+    return pfx_mixture_shr_floor(t + pfx_mixture_shr_floor(u, 32u) + (INT64_C(1) << (sh - 33u)), sh - 32u);
+}
+
+/* q = innov^2 / s in Q16 from innov (Q20) and s's reciprocal: innov * (innov / s in Q40) >> 34. */
+static int64_t innovation_q(int64_t innov, const pfx_recip64_t *rs)
+{
+    return mul_i32_wide(innov, mul_recip_fast(innov, rs, 40u), 34u);
+}
+
 /* log2 N(innov; 0, s) in Q16 from innov (Q20), s (Q30) and q = innov^2 / s
  * (Q16): -(log2(2 pi) + log2 s) / 2 - q / (2 ln 2). */
 static int64_t innovation_log2lik(int64_t s, int64_t q)
@@ -401,7 +512,7 @@ static int64_t innovation_log2lik(int64_t s, int64_t q)
     pfx_log2_q16_t l2s;
     (void)pfx_fixed_log2_u64((uint64_t)s, &l2s);
     return -pfx_mixture_shr_round((int64_t)PFX_LOG2_2PI_Q16 + l2s - (INT64_C(30) << 16), 1u) -
-           pfx_mixture_mul(q, PFX_INV_2LN2_Q30, 30u);
+           mul_fast(q, PFX_INV_2LN2_Q30, 30u);
 }
 
 /* The pair lies certainly below the prune floor: the product is not formed. */
@@ -452,8 +563,13 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
         iterations = 8u;
     }
     lim = (tol > 0) ? (INT64_C(1) << 30) : 0; /* the steps' squares then fit; tol = 0: fixed point only */
-    bx = pfx_mixture_offset(g->cx, c->x) * 1024; /* Q20, |.| <= 2^40 */
-    by = pfx_mixture_offset(g->cy, c->y) * 1024;
+    if (first != NULL) {
+        bx = (int64_t)first->dx * 1024; /* Q20, |.| <= 2^40 */
+        by = (int64_t)first->dy * 1024;
+    } else {
+        bx = pfx_mixture_offset(g->cx, c->x) * 1024;
+        by = pfx_mixture_offset(g->cy, c->y) * 1024;
+    }
     for (it = 0u; it < iterations; ++it) {
         int64_t nx, ny, sx, sy;
         if (it == 0u && first != NULL) {
@@ -463,27 +579,26 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
         } else {
             unit_vector(bx + ex, by + ey, &hx, &hy, &rho);
         }
-        pred = rho - pfx_mixture_add_sat(pfx_mixture_mul(hx, ex, 30u), pfx_mixture_mul(hy, ey, 30u));
-        phx = pfx_mixture_mul32(c->pxx, hx, 20u) + pfx_mixture_mul32(c->pxy, hy, 20u); /* <= 2^42 */
-        phy = pfx_mixture_mul32(c->pxy, hx, 20u) + pfx_mixture_mul32(c->pyy, hy, 20u);
-        s = pfx_mixture_mul(hx, phx, 30u) + pfx_mixture_mul(hy, phy, 30u) + (int64_t)g->var * 1024;
+        /* e = 0 at the first linearisation: pred = rho there */
+        pred = (it == 0u) ? rho : rho - pfx_mixture_add_sat(mul_fast(hx, ex, 30u), mul_fast(hy, ey, 30u));
+        phx = mul32_fast(c->pxx, hx, 20u) + mul32_fast(c->pxy, hy, 20u); /* <= 2^42 */
+        phy = mul32_fast(c->pxy, hx, 20u) + mul32_fast(c->pyy, hy, 20u);
+        s = mul_fast(hx, phx, 30u) + mul_fast(hy, phy, 30u) + (int64_t)g->var * 1024;
         if (s <= 0 || pfx_mixture_recip64((uint64_t)s, &rs) != PFX_OK) {
             return PFX_ERR_DEGENERATE;
         }
         innov = (int64_t)g->radius * 1024 - pred;
         if (it == 0u && gate > 0) {
-            q = pfx_mixture_mul(innov, pfx_mixture_mul_recip_inline(innov, &rs, 40u), 34u);
+            q = innovation_q(innov, &rs);
             if (q > gate) {
                 iterations = 1u; /* gated: the one-step update */
-            } else {
-                q = -1; /* recomputed at the last linearisation */
             }
         }
-        gx = pfx_mixture_mul_recip_inline(phx, &rs, 30u);
-        gy = pfx_mixture_mul_recip_inline(phy, &rs, 30u);
+        gx = mul_recip_fast(phx, &rs, 30u);
+        gy = mul_recip_fast(phy, &rs, 30u);
         /* clamped to +-2^50 (2^30 m): only absurd inputs reach it, and D stays in range */
-        nx = pfx_mixture_clamp(pfx_mixture_mul(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
-        ny = pfx_mixture_clamp(pfx_mixture_mul(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        nx = pfx_mixture_clamp(mul_fast(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        ny = pfx_mixture_clamp(mul_fast(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
         sx = nx - ex; /* |.| <= 2^51 */
         sy = ny - ey;
         ex = nx;
@@ -494,19 +609,22 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
                 break; /* converged: the next step would be at most tol */
             }
         }
+        if (it + 1u < iterations) {
+            q = -1; /* a later linearisation follows: recomputed below */
+        }
     }
     if (q < 0) {
-        q = pfx_mixture_mul(innov, pfx_mixture_mul_recip_inline(innov, &rs, 40u), 34u);
+        q = innovation_q(innov, &rs); /* q >= 0 from the first linearisation is the same value */
     }
     log2w = pfx_mixture_add_sat((int64_t)c->log2w + g->log2w, innovation_log2lik(s, q));
     log2w = pfx_mixture_sat32(log2w);
     if (log2w < floor) {
         return COMPACT_BELOW_FLOOR;
     }
-    qxx = (int64_t)c->pxx * 1024 - pfx_mixture_mul(phx, gx, 30u);
-    qyy = (int64_t)c->pyy * 1024 - pfx_mixture_mul(phy, gy, 30u);
+    qxx = (int64_t)c->pxx * 1024 - mul_fast(phx, gx, 30u);
+    qyy = (int64_t)c->pyy * 1024 - mul_fast(phy, gy, 30u);
     qxy = (int64_t)c->pxy * 1024 -
-          pfx_mixture_shr_round(pfx_mixture_add_sat(pfx_mixture_mul(phx, gy, 30u), pfx_mixture_mul(phy, gx, 30u)), 1u);
+          pfx_mixture_shr_round(pfx_mixture_add_sat(mul_fast(phx, gy, 30u), mul_fast(phy, gx, 30u)), 1u);
     st = pfx_mixture_store_cov(pfx_mixture_shr_round(qxx, 10u), pfx_mixture_shr_round(qxy, 10u),
                                pfx_mixture_shr_round(qyy, 10u), &res);
     if (st != PFX_OK) {
@@ -632,28 +750,104 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
     return broad_core(c, pfx_mixture_max_eig(c), g, p, out, n_out);
 }
 
+/* a b as 128 bits (hi, lo) from four 32x32 -> 64 products: the product
+ * of pfx_mixture.c's u128_mul, here inline for the ring gate's loop. */
+static inline void wide_mul(uint64_t a, uint64_t b, uint64_t *hi, uint64_t *lo)
+{
+    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
+    uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
+    uint64_t p00 = a0 * b0, p01 = a0 * b1, p10 = a1 * b0, p11 = a1 * b1;
+    uint64_t mid = (p00 >> 32) + (p01 & m32) + (p10 & m32);
+    *lo = ((mid & m32) << 32) | (p00 & m32);
+    *hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
+}
+
+/* x^2 > a b (unsigned, exact): pfx_mixture_cmp_products(x, x, a, b) > 0. */
+static inline int square_exceeds(uint64_t x, uint64_t a, uint64_t b)
+{
+    uint64_t h1, l1, h2, l2;
+    wide_mul(x, x, &h1, &l1);
+    wide_mul(a, b, &h2, &l2);
+    return h1 > h2 || (h1 == h2 && l1 > l2);
+}
+
 /*
  * The ring gate (reference ring_gate): the ring passes more than sqrt(gate)
  * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var +
- * lambda_max), with rho = |mean - centre|.  No square root: with A = gate
- * (var + lambda) (Q20) and num = r^2 + rho^2 - A,
+ * lambda_max), with rho = |mean - centre| (rho2 = rho^2, Q20, <= 2^61).
+ * No square root: with A = gate (var + lambda) (Q20) and num = r^2 + rho^2 - A,
  *   (rho - r)^2 > A  <=>  num > 2 r rho  <=>  num > 0 and num^2 > 4 r^2 rho^2
- * (exact, 128-bit).  r <= 2^24 (Q10), rho^2 <= 2^61, A < 2^63: no overflow.
+ * (exact, 128-bit).  r <= 2^24 (Q10), lambda <= 2^32, A < 2^63: no overflow.
  * gate = 0: off.
  */
-static int ring_far(const pfx_component_t *c, int32_t lam, const pfx_ring_t *g, pfx_ratio_q16_t gate)
+static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q16_t gate)
 {
-    int64_t dx, dy, rho2, r, a, num;
+    int64_t r, r2, a, num;
     if (gate <= 0) {
         return 0;
     }
-    dx = pfx_mixture_offset(g->cx, c->x);
-    dy = pfx_mixture_offset(g->cy, c->y);
-    rho2 = dx * dx + dy * dy;
     r = g->radius < 0 ? 0 : g->radius;
-    a = pfx_mixture_mul(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
-    num = r * r + rho2 - a;
-    return num > 0 && pfx_mixture_cmp_products((uint64_t)num, (uint64_t)num, (uint64_t)(4 * r * r), (uint64_t)rho2) > 0;
+    r2 = (int64_t)(int32_t)r * (int32_t)r;
+    a = mul_fast(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
+    num = r2 + rho2 - a;
+    return num > 0 && square_exceeds((uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2);
+}
+
+/*
+ * lambda_max of a work component, computed only when a test needs it.
+ * For a positive semi-definite c inside pfx_mixture_max_eig's 64-bit case
+ * (root = round(sqrt((a-d)^2 + 4 b^2)) exactly, |a-d| <= root <= a+d as
+ * b^2 <= a d) its result lies in [max(a, d), a + d]: the ring gate and the
+ * near-centre test are monotone in lambda, so a test that these bounds
+ * decide gets the same answer as with the exact value (which is then never
+ * computed unless the pair is broad).  Anything else: exact at once.
+ */
+typedef struct {
+    int64_t lo, hi; /* lo == hi: the exact value (also when a bound is met: a d = 0 gives lambda = max(a, d)) */
+} lam_bounds_t;
+
+static void lam_init(const pfx_component_t *c, lam_bounds_t *lb)
+{
+    int64_t a = c->pxx, d = c->pyy, b = c->pxy;
+    if (a >= 0 && d >= 0 && a - d > -(INT64_C(1) << 31) && a - d < (INT64_C(1) << 31) && b > -(INT64_C(1) << 30) &&
+        b < (INT64_C(1) << 30) && b * b <= a * d) {
+        lb->lo = (a > d) ? a : d;
+        lb->hi = a + d;
+        return;
+    }
+    lb->lo = lb->hi = pfx_mixture_max_eig(c);
+}
+
+static int32_t lam_exact(const pfx_component_t *c, lam_bounds_t *lb)
+{
+    if (lb->lo != lb->hi) {
+        lb->lo = lb->hi = pfx_mixture_max_eig(c);
+    }
+    return (int32_t)lb->lo;
+}
+
+/* ring_far and near_centre with lambda from its bounds (rho2 = |mean - centre|^2, Q20). */
+static int ring_far_lazy(const pfx_component_t *c, lam_bounds_t *lb, int64_t rho2, const pfx_ring_t *g,
+                         pfx_ratio_q16_t gate)
+{
+    if (ring_far(rho2, lb->hi, g, gate)) {
+        return 1; /* far even with the largest lambda */
+    }
+    if (lb->lo == lb->hi || !ring_far(rho2, lb->lo, g, gate)) {
+        return 0; /* not far even with the smallest (or gate off) */
+    }
+    return ring_far(rho2, lam_exact(c, lb), g, gate);
+}
+
+static int near_centre_lazy(const pfx_component_t *c, lam_bounds_t *lb, int64_t rho2)
+{
+    if (rho2 <= 4 * lb->lo) {
+        return 1;
+    }
+    if (rho2 > 4 * lb->hi) {
+        return 0;
+    }
+    return rho2 <= 4 * (int64_t)lam_exact(c, lb); /* near_centre */
 }
 
 /* Stream one product into the keep-heaviest buffer unless it is below the
@@ -706,22 +900,28 @@ pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const p
     }
     for (b = 0u; b < n; ++b) {
         const pfx_component_t *c = &work[b];
-        int32_t lam = pfx_mixture_max_eig(c);
+        lam_bounds_t lb;
+        lam_init(c, &lb);
         for (q = 0u; q < nr; ++q) {
             const pfx_ring_t *g = &rings[q];
             lin_t l;
             int broad;
-            if (ring_far(c, lam, g, p->product_gate)) {
+            int64_t dx = pfx_mixture_offset(g->cx, c->x);
+            int64_t dy = pfx_mixture_offset(g->cy, c->y);
+            int64_t rho2 = (int64_t)(int32_t)dx * (int32_t)dx + (int64_t)(int32_t)dy * (int32_t)dy; /* <= 2^61 */
+            if (ring_far_lazy(c, &lb, rho2, g, p->product_gate)) {
                 continue; /* nothing of weight: the ring passes far from the component */
             }
-            broad = near_centre(c, lam, g);
+            broad = near_centre_lazy(c, &lb, rho2);
             if (!broad) {
-                first_lin(c, g, &l);
+                l.dx = (int32_t)dx; /* first_lin, with the offsets at hand */
+                l.dy = (int32_t)dy;
+                unit_vector(dx * 1024, dy * 1024, &l.hx, &l.hy, &l.rho);
                 broad = bends(c, &l, s->bend_limit[q]);
             }
             if (broad) {
                 uint32_t na = 0u;
-                (void)broad_core(c, lam, g, p, s->arcs, &na);
+                (void)broad_core(c, lam_exact(c, &lb), g, p, s->arcs, &na);
                 for (k = 0u; k < na; ++k) {
                     push_product(cand, n_cand, p, &f, &s->arcs[k]);
                 }

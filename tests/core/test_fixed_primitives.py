@@ -105,6 +105,26 @@ def _c_array(name: str) -> list[int]:
     return [int(tok.rstrip("uU"), 0) for tok in re.findall(r"0x[0-9A-Fa-f]+u|\d+u", body.group(1))]
 
 
+def test_rsqrt_line_seeds_are_within_their_stated_error():
+    # k_rsqrt_line_q30 is a fitted table (not generated): the 64-bit square root
+    # needs only its bound, relative error below 2^-7 of y = 2^30 / sqrt(m / 2^32)
+    # on each eighth m >> 29 = 2..7.  Evaluated on 2^16 + 1 points of each piece
+    # (a line against a convex curve: the extremes are at the ends or one
+    # interior point, which the grid resolves to far below the bound).
+    import numpy as np
+
+    body = re.search(r"k_rsqrt_line_q30\[6\]\[2\] = \{(.*?)\};", C_SOURCE.read_text(), re.S)
+    assert body
+    vals = [int(t.rstrip("uU")) for t in re.findall(r"\d+u", body.group(1))]
+    assert len(vals) == 12
+    for k in range(2, 8):
+        a, b = vals[2 * (k - 2)], vals[2 * (k - 2) + 1]
+        m = np.linspace(k * 2**29, (k + 1) * 2**29 - 1, 2**16 + 1)
+        seed = a - np.floor(b * m / 2**32)
+        exact = 2**30 / np.sqrt(m / 2**32)
+        assert np.max(np.abs(seed / exact - 1.0)) < 2**-7, k
+
+
 def test_c_tables_equal_their_defining_formulas():
     assert _c_array("k_log2_table_q24") == list(q.log2_table())
     assert _c_array("k_exp2_table_q32") == list(q.exp2_table())
