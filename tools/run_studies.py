@@ -33,7 +33,8 @@ from peerfix.campaign import expand, load_spec, run_campaign, stored_results, su
 from peerfix.campaign.execute import manifest_results, read_runs, write_outputs  # noqa: E402
 
 SCALE = "open-field-1000"
-ORDER = ["blocked-share", "robust-tuning", "robust-ring", "packet-loss", "density", "anchors", "convergence", "convergence-loss",
+ORDER = ["blocked-share", "robust-tuning", "robust-ring", "blocked-engines", "packet-loss", "density", "anchors",
+         "convergence", "convergence-loss",
          "tempering", "components", SCALE]
 OUT = ROOT / "build" / "studies"
 DOC = ROOT / "docs" / "studies.md"
@@ -203,6 +204,17 @@ def robust_ring(spec, results, lines, headline):
     lines += table(["ring scale", "iterations", "p90 error (m)", "LOS p90 (m)", "ratio", "95 % coverage"], body) + [""]
     best = min(body, key=lambda b: float(b[4]))
     lines += [f"Lowest ratio: {best[4]} (ring scale {best[0]}, {best[1]} iterations, 95 % coverage {best[5]}).", ""]
+
+
+def blocked_engines(spec, results, lines, headline):
+    generic(spec, results, lines, headline)
+    rows = summarise(results, ["blocked_probability", "engine"])
+    los = {r["engine"]: r for r in rows if r["blocked_probability"] == 0.0}
+    parts = [f"{r['engine']} {f2(r['error_p90_m_pooled'] / los[r['engine']]['error_p90_m_pooled'])}"
+             for r in rows if r["blocked_probability"] == 0.2]
+    lines += ["p90 at 20 % blocked over each engine's own line-of-sight p90: " + ", ".join(parts) + ".", ""]
+    headline.append(("blocked paths on 20 % of ranges, robust likelihood, 8 iterations, p90 over line of sight per "
+                     "engine (4 networks): " + ", ".join(parts), command(spec.name)))
 
 
 def robust_tuning(spec, results, lines, headline):
@@ -376,6 +388,7 @@ SECTIONS = {
     "components": components,
     "robust-tuning": robust_tuning,
     "robust-ring": robust_ring,
+    "blocked-engines": blocked_engines,
     "tempering": tempering,
     SCALE: scale,
 }
