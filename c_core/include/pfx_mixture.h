@@ -278,17 +278,84 @@ static inline int64_t pfx_mixture_clamp(int64_t x, int64_t lo, int64_t hi)
     return (x < lo) ? lo : ((x > hi) ? hi : x);
 }
 
+/* pfx_mixture_shr_round(x, s) for |x| <= 2^62 (products of two int32):
+ * x + 2^(s-1) cannot overflow there, so the carry test goes; shifts known
+ * at compile time fold the range tests away. */
+static inline int64_t pfx_mixture_round_small(int64_t x, unsigned s)
+{
+#if defined(PFX_VARIANT_TIES_DOWN)
+    return pfx_mixture_shr_round(x, s); /* the test-only rounding variant */
+#else
+    uint64_t u;
+    if (s == 0u || s > 62u) {
+        return pfx_mixture_shr_round(x, s);
+    }
+    u = (uint64_t)(x + (INT64_C(1) << (s - 1u))) ^ (UINT64_C(1) << 63);
+    return (int64_t)(u >> s) - (int64_t)(UINT64_C(1) << (63u - s));
+#endif
+}
+
+/* pfx_mixture_shr_round_var(x, s) for |x| <= 2^62: floor((x + 2^(s-1)) /
+ * 2^s) with one variable shift (floor through x ^ m, m all ones for x < 0). */
+static inline int64_t pfx_mixture_round_var_small(int64_t x, unsigned s)
+{
+    uint64_t m;
+    int64_t y;
+    if (s == 0u || s > 62u) {
+        return pfx_mixture_shr_round_var(x, s);
+    }
+    y = x + (INT64_C(1) << (s - 1u));
+    m = (y < 0) ? UINT64_MAX : 0u;
+    return (int64_t)((((uint64_t)y ^ m) >> s) ^ m);
+}
+
+/* An unsigned 128-bit value, and the exact product of two 64-bit values
+ * from four 32x32 -> 64 products (mid < 3 * 2^32 cannot wrap); inline for
+ * the hot exact comparisons of pfx_mixture.c and pfx_range.c. */
+typedef struct {
+    uint64_t hi;
+    uint64_t lo;
+} pfx_u128_t;
+
+static inline pfx_u128_t pfx_mixture_u128_mul(uint64_t a, uint64_t b)
+{
+    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
+    uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
+    uint64_t p00 = a0 * b0, p01 = a0 * b1, p10 = a1 * b0, p11 = a1 * b1;
+    uint64_t mid = (p00 >> 32) + (p01 & m32) + (p10 & m32);
+    pfx_u128_t r;
+    r.lo = ((mid & m32) << 32) | (p00 & m32);
+    r.hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
+    return r;
+}
+
+/* pfx_mixture_cmp_products, inline: sign of a b - c d, exact. */
+static inline int pfx_mixture_cmp_products_inline(uint64_t a, uint64_t b, uint64_t c, uint64_t d)
+{
+    pfx_u128_t x = pfx_mixture_u128_mul(a, b), y = pfx_mixture_u128_mul(c, d);
+    if (x.hi != y.hi) {
+        return (x.hi < y.hi) ? -1 : 1;
+    }
+    return (x.lo < y.lo) ? -1 : ((x.lo > y.lo) ? 1 : 0);
+}
+
+/* v in int32 (then a product of two such is one 32x32 -> 64 multiply). */
+static inline int pfx_mixture_in_int32(int64_t v)
+{
+    return v >= INT32_MIN && v <= INT32_MAX;
+}
+
 /* round(a * b / 2^s) for int32 operands: |a b| <= 2^62, one rounding. */
 static inline int64_t pfx_mixture_mul32(int32_t a, int32_t b, unsigned s)
 {
-    return pfx_mixture_shr_round((int64_t)a * b, s);
+    return pfx_mixture_round_small((int64_t)a * b, s);
 }
 
 /* pfx_mixture_mul64 with the one-multiply case inlined (both operands in int32). */
 static inline int64_t pfx_mixture_mul(int64_t a, int64_t b, unsigned s)
 {
-    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
-        return pfx_mixture_shr_round(a * b, s);
+    if (pfx_mixture_in_int32(a) && pfx_mixture_in_int32(b)) {
+        return pfx_mixture_mul32((int32_t)a, (int32_t)b, s);
     }
     return pfx_mixture_mul64(a, b, s);
 }
@@ -296,8 +363,8 @@ static inline int64_t pfx_mixture_mul(int64_t a, int64_t b, unsigned s)
 /* pfx_mixture_mul for a shift known only at run time. */
 static inline int64_t pfx_mixture_mul_var(int64_t a, int64_t b, unsigned s)
 {
-    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
-        return pfx_mixture_shr_round_var(a * b, s);
+    if (pfx_mixture_in_int32(a) && pfx_mixture_in_int32(b)) {
+        return pfx_mixture_round_var_small((int64_t)(int32_t)a * (int32_t)b, s);
     }
     return pfx_mixture_mul64(a, b, s);
 }
@@ -307,8 +374,8 @@ static inline int64_t pfx_mixture_mul_var(int64_t a, int64_t b, unsigned s)
  * anything else goes to the out-of-line function (the same value). */
 static inline int64_t pfx_mixture_mul_recip_inline(int64_t num, const pfx_recip64_t *r, unsigned frac)
 {
-    if (r->shift >= frac && num >= INT32_MIN && num <= INT32_MAX) {
-        return pfx_mixture_shr_round_var(num * r->mant, r->shift - frac);
+    if (r->shift >= frac && pfx_mixture_in_int32(num)) {
+        return pfx_mixture_round_var_small((int64_t)(int32_t)num * r->mant, r->shift - frac);
     }
     return pfx_mixture_mul_recip(num, r, frac);
 }

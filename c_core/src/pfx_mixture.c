@@ -34,10 +34,7 @@ static const uint16_t k_rsqrt_seed_q15[96] = {
 /* 128-bit unsigned helpers                                                   */
 /* ------------------------------------------------------------------------ */
 
-typedef struct {
-    uint64_t hi;
-    uint64_t lo;
-} u128_t;
+typedef pfx_u128_t u128_t;
 
 static uint64_t mag64(int64_t v)
 {
@@ -48,19 +45,11 @@ static uint64_t mag64(int64_t v)
  * clang's -fsanitize=integer): carries and borrows are found by comparison,
  * shifted words are masked first. */
 
-/* Exact a * b from four 32x32 -> 64 products; mid < 3 * 2^32 cannot wrap.
- * Inlined where the struct would otherwise go through memory (hot callers);
- * u128_mul is the out-of-line copy for the others. */
+/* Exact a * b (pfx_mixture_u128_mul): inline where the struct would
+ * otherwise go through memory (hot callers), u128_mul out of line for the others. */
 static inline u128_t u128_mul_inline(uint64_t a, uint64_t b)
 {
-    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
-    uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
-    uint64_t p00 = a0 * b0, p01 = a0 * b1, p10 = a1 * b0, p11 = a1 * b1;
-    uint64_t mid = (p00 >> 32) + (p01 & m32) + (p10 & m32);
-    u128_t r;
-    r.lo = ((mid & m32) << 32) | (p00 & m32);
-    r.hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
-    return r;
+    return pfx_mixture_u128_mul(a, b);
 }
 
 static u128_t u128_mul(uint64_t a, uint64_t b)
@@ -291,7 +280,7 @@ int64_t pfx_mixture_mul64(int64_t a, int64_t b, unsigned s)
 
 int pfx_mixture_cmp_products(uint64_t a, uint64_t b, uint64_t c, uint64_t d)
 {
-    return u128_cmp(u128_mul_inline(a, b), u128_mul_inline(c, d));
+    return pfx_mixture_cmp_products_inline(a, b, c, d);
 }
 
 /* x is rounded to its top 32 bits (round-half-up of the dropped part; a

@@ -91,60 +91,6 @@ static uint64_t mag64(int64_t v)
 }
 
 /*
- * The hot loops' multiplies with the values of pfx_mixture_mul32, _mul and
- * _mul_recip_inline, but an int32 x int32 product formed as such (one
- * SMULL, where int64 operands make the compiler form a 64 x 64 product),
- * and, for |x| <= 2^62, a rounding shift that needs no carry test:
- * x + 2^(s-1) cannot overflow, and floor(y / 2^s) is taken from y + 2^63
- * (the sign bit flipped) as in pfx_mixture_shr_round.  1 <= s <= 62.
- */
-static inline int64_t round_small(int64_t x, unsigned s)
-{
-#if defined(PFX_VARIANT_TIES_DOWN)
-    return pfx_mixture_shr_round(x, s); /* the test-only rounding variant */
-#else
-    uint64_t u = (uint64_t)(x + (INT64_C(1) << (s - 1u))) ^ (UINT64_C(1) << 63);
-    return (int64_t)(u >> s) - (int64_t)(UINT64_C(1) << (63u - s));
-#endif
-}
-
-static inline int64_t mul32_fast(int32_t a, int32_t b, unsigned s)
-{
-    return round_small((int64_t)a * b, s);
-}
-
-static inline int64_t mul_fast(int64_t a, int64_t b, unsigned s)
-{
-    if (a >= INT32_MIN && a <= INT32_MAX && b >= INT32_MIN && b <= INT32_MAX) {
-        return round_small((int64_t)(int32_t)a * (int32_t)b, s);
-    }
-    return pfx_mixture_mul64(a, b, s);
-}
-
-/* pfx_mixture_shr_round_var(x, s) for |x| <= 2^62: floor(floor(x / 2^(s-1)) / 2)
- * + its lowest bit is floor((x + 2^(s-1)) / 2^s) (no overflow), one
- * variable shift (floor through x ^ m, m all ones for x < 0). */
-static inline int64_t round_var_small(int64_t x, unsigned s)
-{
-    uint64_t m;
-    int64_t y;
-    if (s == 0u || s > 62u) {
-        return pfx_mixture_shr_round_var(x, s);
-    }
-    y = x + (INT64_C(1) << (s - 1u));
-    m = (y < 0) ? UINT64_MAX : 0u;
-    return (int64_t)((((uint64_t)y ^ m) >> s) ^ m);
-}
-
-static inline int64_t mul_recip_fast(int64_t num, const pfx_recip64_t *r, unsigned frac)
-{
-    if (r->shift >= frac && num >= INT32_MIN && num <= INT32_MAX) {
-        return round_var_small((int64_t)(int32_t)num * r->mant, r->shift - frac);
-    }
-    return pfx_mixture_mul_recip(num, r, frac);
-}
-
-/*
  * Unit vector of (dx, dy) in Q30 and its length in the unit of d.
  * Scaling: d is brought to 30 significant bits (exact left shift, or one
  * rounding right shift): n2 = dx'^2 + dy'^2 in [2^58, 2^61].  n2 is shifted
@@ -171,8 +117,8 @@ static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_
         nx = pfx_mixture_shr_round_var(dx, b - 30u);
         ny = pfx_mixture_shr_round_var(dy, b - 30u);
     } else if (b > 30u) {
-        nx = round_var_small(dx, b - 30u); /* |d| < 2^62 */
-        ny = round_var_small(dy, b - 30u);
+        nx = pfx_mixture_round_var_small(dx, b - 30u); /* |d| < 2^62 */
+        ny = pfx_mixture_round_var_small(dy, b - 30u);
     } else {
         nx = (int32_t)dx * (INT32_C(1) << (30u - b)); /* |nx| < 2^30: in int32 */
         ny = (int32_t)dy * (INT32_C(1) << (30u - b));
@@ -185,11 +131,11 @@ static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_
     if (y <= (uint64_t)INT32_MAX) {
         int64_t px = (int64_t)(int32_t)nx * (int32_t)y, py = (int64_t)(int32_t)ny * (int32_t)y;
         if (z == 2u) {
-            *ux = pfx_mixture_sat32(round_small(px, 31u));
-            *uy = pfx_mixture_sat32(round_small(py, 31u));
+            *ux = pfx_mixture_sat32(pfx_mixture_round_small(px, 31u));
+            *uy = pfx_mixture_sat32(pfx_mixture_round_small(py, 31u));
         } else {
-            *ux = pfx_mixture_sat32(round_small(px, 30u));
-            *uy = pfx_mixture_sat32(round_small(py, 30u));
+            *ux = pfx_mixture_sat32(pfx_mixture_round_small(px, 30u));
+            *uy = pfx_mixture_sat32(pfx_mixture_round_small(py, 30u));
         }
     } else if (z == 2u) {
         *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 31u));
@@ -198,8 +144,8 @@ static void unit_vector(int64_t dx, int64_t dy, int32_t *ux, int32_t *uy, int64_
         *ux = pfx_mixture_sat32(pfx_mixture_shr_round(nx * (int64_t)y, 30u));
         *uy = pfx_mixture_sat32(pfx_mixture_shr_round(ny * (int64_t)y, 30u));
     }
-    r = round_small((int64_t)(int32_t)nx * *ux + (int64_t)(int32_t)ny * *uy, 30u); /* rho' in the unit of nx */
-    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : round_var_small(r, 30u - b); /* |r| <= 2^31 */
+    r = pfx_mixture_round_small((int64_t)(int32_t)nx * *ux + (int64_t)(int32_t)ny * *uy, 30u); /* rho' in the unit of nx */
+    *rho = (b > 30u) ? pfx_fixed_shl64_sat(r, b - 30u) : pfx_mixture_round_var_small(r, 30u - b); /* |r| <= 2^31 */
 }
 
 /* ------------------------------------------------------------------------ */
@@ -237,7 +183,7 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
     for (k = 0u; k < nb; ++k) {
         const pfx_component_t *c = &neighbour->comp[k];
         pfx_ring_t *g = &rings[k];
-        g->log2w = pfx_mixture_sat32((int64_t)c->log2w + los); /* pfx_fixed_add_sat */
+        g->log2w = pfx_fixed_add_sat(c->log2w, los);
         g->cx = c->x;
         g->cy = c->y;
         g->radius = range;
@@ -245,7 +191,7 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
         if (robust) {
             int64_t bias = p->blocked_bias > 0 ? p->blocked_bias : 0;
             pfx_ring_t *h = &rings[nb + k];
-            h->log2w = pfx_mixture_sat32((int64_t)c->log2w + nlos);
+            h->log2w = pfx_fixed_add_sat(c->log2w, nlos);
             h->cx = c->x;
             h->cy = c->y;
             h->radius = (pfx_len_q10_t)(((int64_t)range - bias > 0) ? (int64_t)range - bias : 0);
@@ -323,18 +269,18 @@ static void arc_shape(pfx_len_q10_t r, pfx_area_q20_t var, uint32_t stride, cons
 static pfx_status_t arc_cov(int32_t var, int32_t t2, uint32_t k, pfx_component_t *out)
 {
     int32_t c = dir_cos(k), s = dir_sin(k);
-    int32_t c2 = (int32_t)mul32_fast(c, c, 30u); /* [0, 2^30] */
-    int32_t s2 = (int32_t)mul32_fast(s, s, 30u);
-    int32_t cs = (int32_t)mul32_fast(c, s, 30u); /* |.| <= 2^29 */
-    return pfx_mixture_store_cov(round_small((int64_t)var * c2 + (int64_t)t2 * s2, 30u),
-                                 round_small(((int64_t)var - t2) * cs, 30u),
-                                 round_small((int64_t)var * s2 + (int64_t)t2 * c2, 30u), out);
+    int32_t c2 = (int32_t)pfx_mixture_mul32(c, c, 30u); /* [0, 2^30] */
+    int32_t s2 = (int32_t)pfx_mixture_mul32(s, s, 30u);
+    int32_t cs = (int32_t)pfx_mixture_mul32(c, s, 30u); /* |.| <= 2^29 */
+    return pfx_mixture_store_cov(pfx_mixture_round_small((int64_t)var * c2 + (int64_t)t2 * s2, 30u),
+                                 pfx_mixture_round_small(((int64_t)var - t2) * cs, 30u),
+                                 pfx_mixture_round_small((int64_t)var * s2 + (int64_t)t2 * c2, 30u), out);
 }
 
 /* Q20 * Q30 -> Q10, rounded once (mul64: radial may exceed 2^31). */
 static int64_t along(int64_t radial_q20, int32_t u)
 {
-    return mul_fast(radial_q20, u, 40u);
+    return pfx_mixture_mul(radial_q20, u, 40u);
 }
 
 pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx_len_q10_t bounds[4],
@@ -422,11 +368,17 @@ typedef struct {
     int32_t dx, dy; /* the Q10 offset centre - mean (pfx_mixture_offset: |.| <= 2^30) */
 } lin_t;
 
+/* The first linearisation from the offsets d = centre - mean (Q10, pfx_mixture_offset). */
+static void lin_at(int64_t dx, int64_t dy, lin_t *l)
+{
+    l->dx = (int32_t)dx;
+    l->dy = (int32_t)dy;
+    unit_vector(dx * 1024, dy * 1024, &l->hx, &l->hy, &l->rho);
+}
+
 static void first_lin(const pfx_component_t *c, const pfx_ring_t *g, lin_t *l)
 {
-    l->dx = (int32_t)pfx_mixture_offset(g->cx, c->x);
-    l->dy = (int32_t)pfx_mixture_offset(g->cy, c->y);
-    unit_vector((int64_t)l->dx * 1024, (int64_t)l->dy * 1024, &l->hx, &l->hy, &l->rho);
+    lin_at(pfx_mixture_offset(g->cx, c->x), pfx_mixture_offset(g->cy, c->y), l);
 }
 
 /* near centre: rho^2 <= 4 lambda_max (Q20, exact squares). */
@@ -452,9 +404,9 @@ static int64_t bend_limit(const pfx_ring_t *g, uint32_t sd, const pfx_params_t *
 static int bends(const pfx_component_t *c, const lin_t *l, int64_t limit)
 {
     int32_t tx = -l->hy, ty = l->hx; /* |h| <= 2^30: no overflow */
-    int64_t ptx = mul32_fast(c->pxx, tx, 20u) + mul32_fast(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
-    int64_t pty = mul32_fast(c->pxy, tx, 20u) + mul32_fast(c->pyy, ty, 20u);
-    int64_t st2 = mul_fast(tx, ptx, 30u) + mul_fast(ty, pty, 30u);
+    int64_t ptx = pfx_mixture_mul32(c->pxx, tx, 20u) + pfx_mixture_mul32(c->pxy, ty, 20u); /* Q30, <= 2^42 each */
+    int64_t pty = pfx_mixture_mul32(c->pxy, tx, 20u) + pfx_mixture_mul32(c->pyy, ty, 20u);
+    int64_t st2 = pfx_mixture_mul(tx, ptx, 30u) + pfx_mixture_mul(ty, pty, 30u);
     return 2 * st2 > limit;
 }
 
@@ -502,7 +454,7 @@ static inline int64_t mul_i32_wide(int64_t a, int64_t b, unsigned sh)
 /* q = innov^2 / s in Q16 from innov (Q20) and s's reciprocal: innov * (innov / s in Q40) >> 34. */
 static int64_t innovation_q(int64_t innov, const pfx_recip64_t *rs)
 {
-    return mul_i32_wide(innov, mul_recip_fast(innov, rs, 40u), 34u);
+    return mul_i32_wide(innov, pfx_mixture_mul_recip_inline(innov, rs, 40u), 34u);
 }
 
 /* log2 N(innov; 0, s) in Q16 from innov (Q20), s (Q30) and q = innov^2 / s
@@ -512,7 +464,7 @@ static int64_t innovation_log2lik(int64_t s, int64_t q)
     pfx_log2_q16_t l2s;
     (void)pfx_fixed_log2_u64((uint64_t)s, &l2s);
     return -pfx_mixture_shr_round((int64_t)PFX_LOG2_2PI_Q16 + l2s - (INT64_C(30) << 16), 1u) -
-           mul_fast(q, PFX_INV_2LN2_Q30, 30u);
+           pfx_mixture_mul(q, PFX_INV_2LN2_Q30, 30u);
 }
 
 /* The pair lies certainly below the prune floor: the product is not formed. */
@@ -580,10 +532,10 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
             unit_vector(bx + ex, by + ey, &hx, &hy, &rho);
         }
         /* e = 0 at the first linearisation: pred = rho there */
-        pred = (it == 0u) ? rho : rho - pfx_mixture_add_sat(mul_fast(hx, ex, 30u), mul_fast(hy, ey, 30u));
-        phx = mul32_fast(c->pxx, hx, 20u) + mul32_fast(c->pxy, hy, 20u); /* <= 2^42 */
-        phy = mul32_fast(c->pxy, hx, 20u) + mul32_fast(c->pyy, hy, 20u);
-        s = mul_fast(hx, phx, 30u) + mul_fast(hy, phy, 30u) + (int64_t)g->var * 1024;
+        pred = (it == 0u) ? rho : rho - pfx_mixture_add_sat(pfx_mixture_mul(hx, ex, 30u), pfx_mixture_mul(hy, ey, 30u));
+        phx = pfx_mixture_mul32(c->pxx, hx, 20u) + pfx_mixture_mul32(c->pxy, hy, 20u); /* <= 2^42 */
+        phy = pfx_mixture_mul32(c->pxy, hx, 20u) + pfx_mixture_mul32(c->pyy, hy, 20u);
+        s = pfx_mixture_mul(hx, phx, 30u) + pfx_mixture_mul(hy, phy, 30u) + (int64_t)g->var * 1024;
         if (s <= 0 || pfx_mixture_recip64((uint64_t)s, &rs) != PFX_OK) {
             return PFX_ERR_DEGENERATE;
         }
@@ -594,11 +546,11 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
                 iterations = 1u; /* gated: the one-step update */
             }
         }
-        gx = mul_recip_fast(phx, &rs, 30u);
-        gy = mul_recip_fast(phy, &rs, 30u);
+        gx = pfx_mixture_mul_recip_inline(phx, &rs, 30u);
+        gy = pfx_mixture_mul_recip_inline(phy, &rs, 30u);
         /* clamped to +-2^50 (2^30 m): only absurd inputs reach it, and D stays in range */
-        nx = pfx_mixture_clamp(mul_fast(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
-        ny = pfx_mixture_clamp(mul_fast(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        nx = pfx_mixture_clamp(pfx_mixture_mul(gx, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
+        ny = pfx_mixture_clamp(pfx_mixture_mul(gy, innov, 30u), -(INT64_C(1) << 50), INT64_C(1) << 50);
         sx = nx - ex; /* |.| <= 2^51 */
         sy = ny - ey;
         ex = nx;
@@ -621,10 +573,10 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
     if (log2w < floor) {
         return COMPACT_BELOW_FLOOR;
     }
-    qxx = (int64_t)c->pxx * 1024 - mul_fast(phx, gx, 30u);
-    qyy = (int64_t)c->pyy * 1024 - mul_fast(phy, gy, 30u);
+    qxx = (int64_t)c->pxx * 1024 - pfx_mixture_mul(phx, gx, 30u);
+    qyy = (int64_t)c->pyy * 1024 - pfx_mixture_mul(phy, gy, 30u);
     qxy = (int64_t)c->pxy * 1024 -
-          pfx_mixture_shr_round(pfx_mixture_add_sat(mul_fast(phx, gy, 30u), mul_fast(phy, gx, 30u)), 1u);
+          pfx_mixture_shr_round(pfx_mixture_add_sat(pfx_mixture_mul(phx, gy, 30u), pfx_mixture_mul(phy, gx, 30u)), 1u);
     st = pfx_mixture_store_cov(pfx_mixture_shr_round(qxx, 10u), pfx_mixture_shr_round(qxy, 10u),
                                pfx_mixture_shr_round(qyy, 10u), &res);
     if (st != PFX_OK) {
@@ -750,27 +702,6 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
     return broad_core(c, pfx_mixture_max_eig(c), g, p, out, n_out);
 }
 
-/* a b as 128 bits (hi, lo) from four 32x32 -> 64 products: the product
- * of pfx_mixture.c's u128_mul, here inline for the ring gate's loop. */
-static inline void wide_mul(uint64_t a, uint64_t b, uint64_t *hi, uint64_t *lo)
-{
-    const uint64_t m32 = UINT64_C(0xFFFFFFFF);
-    uint64_t a0 = a & m32, a1 = a >> 32, b0 = b & m32, b1 = b >> 32;
-    uint64_t p00 = a0 * b0, p01 = a0 * b1, p10 = a1 * b0, p11 = a1 * b1;
-    uint64_t mid = (p00 >> 32) + (p01 & m32) + (p10 & m32);
-    *lo = ((mid & m32) << 32) | (p00 & m32);
-    *hi = p11 + (p01 >> 32) + (p10 >> 32) + (mid >> 32);
-}
-
-/* x^2 > a b (unsigned, exact): pfx_mixture_cmp_products(x, x, a, b) > 0. */
-static inline int square_exceeds(uint64_t x, uint64_t a, uint64_t b)
-{
-    uint64_t h1, l1, h2, l2;
-    wide_mul(x, x, &h1, &l1);
-    wide_mul(a, b, &h2, &l2);
-    return h1 > h2 || (h1 == h2 && l1 > l2);
-}
-
 /*
  * The ring gate (reference ring_gate): the ring passes more than sqrt(gate)
  * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var +
@@ -788,9 +719,9 @@ static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q1
     }
     r = g->radius < 0 ? 0 : g->radius;
     r2 = (int64_t)(int32_t)r * (int32_t)r;
-    a = mul_fast(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
+    a = pfx_mixture_mul(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
     num = r2 + rho2 - a;
-    return num > 0 && square_exceeds((uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2);
+    return num > 0 && pfx_mixture_cmp_products_inline((uint64_t)num, (uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2) > 0;
 }
 
 /*
@@ -914,9 +845,7 @@ pfx_status_t pfx_range_multiply(const pfx_component_t *work, uint32_t n, const p
             }
             broad = near_centre_lazy(c, &lb, rho2);
             if (!broad) {
-                l.dx = (int32_t)dx; /* first_lin, with the offsets at hand */
-                l.dy = (int32_t)dy;
-                unit_vector(dx * 1024, dy * 1024, &l.hx, &l.hy, &l.rho);
+                lin_at(dx, dy, &l); /* first_lin, with the offsets at hand */
                 broad = bends(c, &l, s->bend_limit[q]);
             }
             if (broad) {

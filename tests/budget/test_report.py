@@ -109,7 +109,7 @@ def test_figures_hang_together(quick):
     for name, e in doc["entries"].items():
         # every Cortex-M4 instruction takes at least one cycle in the model
         assert e["cycles_max"] >= e["instructions_max"] > 0, name
-        assert e["time_max_us"] == pytest.approx(e["cycles_max"] / clock, abs=0.05), name
+        assert e["time_max_us"] == round(e["cycles_max"] / clock, 1), name  # the report's 0.1 us rounding
         # the measured high-water mark never exceeds the static worst case
         assert 0 < e["stack_measured_bytes"] <= e["stack_static_bytes"], name
     assert doc["stack_bytes"] == max(e["stack_static_bytes"] for e in doc["entries"].values())
