@@ -189,29 +189,33 @@ def generic(spec, results, lines, headline):
     lines += ["", "p90 error and RMSE within 1 m pooled over all agents of all networks.", ""]
 
 
+def _blocked_over_los(rows, keys):
+    """(row at 20 % blocked, its line-of-sight row with the same `keys`, p90 ratio) for every blocked row."""
+    los = {tuple(r[k] for k in keys): r for r in rows if r["blocked_probability"] == 0.0}
+    out = []
+    for r in rows:
+        base = los.get(tuple(r[k] for k in keys))
+        if r["blocked_probability"] == 0.2 and base:
+            out.append((r, base, r["error_p90_m_pooled"] / base["error_p90_m_pooled"]))
+    return out
+
+
 def robust_ring(spec, results, lines, headline):
     generic(spec, results, lines, headline)
-    rows = summarise(results, list(spec.swept))
-    los = {(r["robust_ring_scale"], r["iterations"]): r for r in rows if r["blocked_probability"] == 0.0}
-    body = []
-    for r in rows:
-        if r["blocked_probability"] == 0.2:
-            base = los[(r["robust_ring_scale"], r["iterations"])]
-            body.append([f"{r['robust_ring_scale']:g}", str(r["iterations"]), f3(r["error_p90_m_pooled"]),
-                         f3(base["error_p90_m_pooled"]), f2(r["error_p90_m_pooled"] / base["error_p90_m_pooled"]),
-                         f3(r["coverage_95"])])
+    pairs = _blocked_over_los(summarise(results, list(spec.swept)), ["robust_ring_scale", "iterations"])
+    body = [[f"{r['robust_ring_scale']:g}", str(r["iterations"]), f3(r["error_p90_m_pooled"]),
+             f3(base["error_p90_m_pooled"]), f2(ratio), f3(r["coverage_95"])] for r, base, ratio in pairs]
     lines += ["20 % blocked against line of sight of the same settings:", ""]
     lines += table(["ring scale", "iterations", "p90 error (m)", "LOS p90 (m)", "ratio", "95 % coverage"], body) + [""]
-    best = min(body, key=lambda b: float(b[4]))
-    lines += [f"Lowest ratio: {best[4]} (ring scale {best[0]}, {best[1]} iterations, 95 % coverage {best[5]}).", ""]
+    r, _, ratio = min(pairs, key=lambda t: t[2])
+    lines += [f"Lowest ratio: {f2(ratio)} (ring scale {r['robust_ring_scale']:g}, {r['iterations']} iterations, "
+              f"95 % coverage {f3(r['coverage_95'])}).", ""]
 
 
 def blocked_engines(spec, results, lines, headline):
     generic(spec, results, lines, headline)
-    rows = summarise(results, ["blocked_probability", "engine"])
-    los = {r["engine"]: r for r in rows if r["blocked_probability"] == 0.0}
-    parts = [f"{r['engine']} {f2(r['error_p90_m_pooled'] / los[r['engine']]['error_p90_m_pooled'])}"
-             for r in rows if r["blocked_probability"] == 0.2]
+    pairs = _blocked_over_los(summarise(results, ["blocked_probability", "engine"]), ["engine"])
+    parts = [f"{r['engine']} {f2(ratio)}" for r, _, ratio in pairs]
     lines += ["p90 at 20 % blocked over each engine's own line-of-sight p90: " + ", ".join(parts) + ".", ""]
     headline.append(("blocked paths on 20 % of ranges, robust likelihood, 8 iterations, p90 over line of sight per "
                      "engine (4 networks): " + ", ".join(parts), command(spec.name)))
@@ -263,14 +267,12 @@ def _robust_preset_lines(rows, keys, lines, headline, name, spec):
             for r in summarise(res, ["blocked_probability", "robust", "iterations"]):
                 if r["blocked_probability"] == 0.0 and not r["robust"]:
                     standard[r["iterations"]] = r["error_p90_m_pooled"]
+    pairs = _blocked_over_los(rows, keys)
     body = []
-    for r in rows:
-        if r["blocked_probability"] != 0.2 or not is_preset(r):
+    for r, base, _ in pairs:
+        if not is_preset(r):
             continue
-        los = [q for q in rows if q["blocked_probability"] == 0.0 and all(q[k] == r[k] for k in keys)]
-        if not los:
-            continue
-        p90, lr = r["error_p90_m_pooled"], los[0]["error_p90_m_pooled"]
+        p90, lr = r["error_p90_m_pooled"], base["error_p90_m_pooled"]
         ls = standard.get(r["iterations"])
         body.append([str(r["iterations"]), f3(p90), f3(lr), f2(p90 / lr), f3(ls), f2(p90 / ls) if ls else "-",
                      f3(r["coverage_95"]), f3(r["run_s"])])
@@ -285,12 +287,7 @@ def _robust_preset_lines(rows, keys, lines, headline, name, spec):
                   + "), 20 % blocked, against line of sight:", ""]
         lines += table(["iterations", "p90 error (m)", "LOS p90, same settings (m)", "ratio",
                         "LOS p90, standard likelihood (m)", "ratio", "95 % coverage", "run s/network"], body)
-        ratios = []
-        for r in rows:
-            los = [q for q in rows if q["blocked_probability"] == 0.0 and all(q[k] == r[k] for k in keys)]
-            if r["blocked_probability"] == 0.2 and los:
-                ratios.append((r["error_p90_m_pooled"] / los[0]["error_p90_m_pooled"], r))
-        low, r = min(ratios, key=lambda t: t[0])
+        r, _, low = min(pairs, key=lambda t: t[2])
         lines += ["", f"Lowest ratio of any setting of this study (against line of sight of the same settings): "
                   f"{f2(low)}, at 95 % coverage {f3(r['coverage_95'])} and worst network "
                   f"{f3(r['fraction_within_1m_min'])} within 1 m ({', '.join(f'{k} {r[k]:g}' for k in keys)}); "
