@@ -33,7 +33,8 @@ from peerfix.campaign import expand, load_spec, run_campaign, stored_results, su
 from peerfix.campaign.execute import manifest_results, read_runs, write_outputs  # noqa: E402
 
 SCALE = "open-field-1000"
-ORDER = ["blocked-share", "robust-tuning", "robust-ring", "blocked-engines", "packet-loss", "density", "anchors",
+ORDER = ["blocked-share", "robust-tuning", "robust-ring", "robust-spread", "robust-spread-heldout", "blocked-engines",
+         "packet-loss", "density", "anchors",
          "convergence", "convergence-loss",
          "tempering", "components", SCALE]
 OUT = ROOT / "build" / "studies"
@@ -212,6 +213,30 @@ def robust_ring(spec, results, lines, headline):
               f"95 % coverage {f3(r['coverage_95'])}).", ""]
 
 
+def robust_spread(spec, results, lines, headline):
+    """Rings widened by the bound or along the line of sight: the ratio per setting, and the preset's rows."""
+    generic(spec, results, lines, headline)
+    keys = ["directional_spread", "iterations"]
+    rows = summarise(results, list(spec.swept))
+    pairs = _blocked_over_los(rows, keys)
+    body = [["along the line of sight" if r["directional_spread"] else "bound (lambda_max)", str(r["iterations"]),
+             f3(r["error_p90_m_pooled"]), f3(base["error_p90_m_pooled"]), f2(ratio), f3(r["coverage_95"]),
+             f3(r["fraction_within_1m_min"])] for r, base, ratio in pairs]
+    lines += ["20 % blocked against line of sight of the same settings:", ""]
+    lines += table(["ring spread", "iterations", "p90 error (m)", "LOS p90 (m)", "ratio", "95 % coverage",
+                    "worst network"], body) + [""]
+    seeds = f"seeds {spec.seeds[0]}-{spec.seeds[-1]}"
+    for r, base, ratio in pairs:
+        if r["iterations"] == max(p[0]["iterations"] for p in pairs):
+            rule = "along the line of sight" if r["directional_spread"] else "by the bound lambda_max"
+            headline.append((f"blocked paths on 20 % of ranges (bias mean 1 m), robust likelihood, the preset's reduction "
+                             f"settings, {r['iterations']} iterations, rings widened {rule} ({len(spec.seeds)} networks, "
+                             f"{seeds}): p90 {f3(r['error_p90_m_pooled'])} m, {f2(ratio)} times the line-of-sight p90 "
+                             f"({f3(base['error_p90_m_pooled'])} m), 95 % coverage {f3(r['coverage_95'])} "
+                             f"(target <= 2)", command(spec.name)))
+    _robust_preset_lines(rows, keys, lines, headline, spec.name, spec)
+
+
 def blocked_engines(spec, results, lines, headline):
     generic(spec, results, lines, headline)
     pairs = _blocked_over_los(summarise(results, ["blocked_probability", "engine"]), ["engine"])
@@ -385,6 +410,8 @@ SECTIONS = {
     "components": components,
     "robust-tuning": robust_tuning,
     "robust-ring": robust_ring,
+    "robust-spread": robust_spread,
+    "robust-spread-heldout": robust_spread,
     "blocked-engines": blocked_engines,
     "tempering": tempering,
     SCALE: scale,

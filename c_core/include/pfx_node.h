@@ -8,7 +8,7 @@
  * prediction and the point estimate.
  *
  * All state is caller-owned; pfx_node_update needs a pfx_workspace_t
- * (14 624 bytes, contents meaningless between calls) so that nothing large
+ * (sizeof 15 144 bytes on the host, contents meaningless between calls) so that nothing large
  * lives on the stack.
  *
  * Validation (every entry point): NULL pointers and settings out of their

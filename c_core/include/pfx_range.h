@@ -62,14 +62,21 @@ typedef struct {
                                            sigmas from the component is not formed; a compact product whose
                                            first squared normalised innovation exceeds it keeps the one-step
                                            update [0 = off, 32768) */
+    uint32_t directional_spread;        /* how a neighbour's covariance P widens its rings: 0 = by lambda_max(P)
+                                           in every direction; 1 = by P along each line of sight (reference
+                                           ring_messages) [0, 1] */
 } pfx_params_t;
 
-/* One ring message: N(r; ||x - c||, var), weight 2^log2w. */
+/* One ring message: N(r; ||x - c||, var + h^T N h), weight 2^log2w; N is the
+ * centre's covariance (zero unless directional_spread), spread = lambda_max(N),
+ * so var + spread bounds the ring's variance in any direction (gates, broad test). */
 typedef struct {
     pfx_log2_q16_t log2w;
     pfx_len_q10_t cx, cy;
     pfx_len_q10_t radius;
     pfx_area_q20_t var;
+    pfx_area_q20_t spread;
+    pfx_area_q20_t nxx, nxy, nyy;
 } pfx_ring_t;
 
 /* Scratch of one neighbour step; lives in pfx_workspace_t. */
@@ -84,7 +91,8 @@ typedef struct {
 void pfx_range_direction(uint32_t k, int32_t *ux, int32_t *uy);
 
 /* Rings of one received belief and range (reference ring_messages):
- * var = sigma^2 + lambda_max(P) (Q20, saturated); with blocked_weight > 0
+ * var = sigma^2 + lambda_max(P) (Q20, saturated), N = 0, spread = 0; with
+ * directional_spread var = sigma^2, N = P, spread = lambda_max(P); with blocked_weight > 0
  * the line-of-sight rings (log2(1 - w) added) then the blocked rings
  * (log2 w, radius max(r - bias, 0), var + bias^2).  *n = count of rings.
  * Checks: belief count <= PFX_MAX_COMPONENTS (PFX_ERR_DEGENERATE),

@@ -37,6 +37,7 @@ void pfx_params_default(pfx_params_t *p)
     p->blocked_bias = 1024;                  /* 1.0 m */
     p->max_range = 1024000;                  /* 1000 m */
     p->product_gate = 16 << 16;              /* squared normalised innovation (4 sigma) */
+    p->directional_spread = 0u;              /* rings widened by lambda_max of the neighbour */
 }
 
 pfx_status_t pfx_params_check(const pfx_params_t *p)
@@ -58,7 +59,7 @@ pfx_status_t pfx_params_check(const pfx_params_t *p)
         p->censor_spread < 0 || p->censor_spread > (INT32_C(1) << 20) || p->mode_gate < 0 ||
         p->mode_min_weight < 0 || p->mode_min_weight > PFX_FIXED_FRAC_Q30_ONE || p->blocked_weight < 0 ||
         p->blocked_weight >= PFX_FIXED_FRAC_Q30_ONE || p->blocked_bias < 0 || p->blocked_bias > p->max_range ||
-        p->product_gate < 0) {
+        p->product_gate < 0 || p->directional_spread > 1u) {
         return PFX_ERR_ARG;
     }
     return PFX_OK;

@@ -187,7 +187,16 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
         g->cx = c->x;
         g->cy = c->y;
         g->radius = range;
-        g->var = pfx_mixture_sat32(s2 + pfx_mixture_max_eig(c));
+        if (p->directional_spread != 0u) {
+            g->var = pfx_mixture_sat32(s2);
+            g->spread = pfx_mixture_max_eig(c);
+            g->nxx = c->pxx;
+            g->nxy = c->pxy;
+            g->nyy = c->pyy;
+        } else {
+            g->var = pfx_mixture_sat32(s2 + pfx_mixture_max_eig(c));
+            g->spread = g->nxx = g->nxy = g->nyy = 0;
+        }
         if (robust) {
             int64_t bias = p->blocked_bias > 0 ? p->blocked_bias : 0;
             pfx_ring_t *h = &rings[nb + k];
@@ -196,6 +205,10 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
             h->cy = c->y;
             h->radius = (pfx_len_q10_t)(((int64_t)range - bias > 0) ? (int64_t)range - bias : 0);
             h->var = pfx_mixture_sat32((int64_t)g->var + pfx_mixture_mul(bias, bias, 0u));
+            h->spread = g->spread;
+            h->nxx = g->nxx;
+            h->nxy = g->nxy;
+            h->nyy = g->nyy;
         }
     }
     *n = robust ? 2u * nb : nb;
@@ -263,18 +276,20 @@ static void arc_shape(pfx_len_q10_t r, pfx_area_q20_t var, uint32_t stride, cons
     }
 }
 
-/* var u u^T + t2 v v^T (v the tangent): pxx = var c^2 + t2 s^2,
- * pyy = var s^2 + t2 c^2, pxy = (var - t2) c s.  Squares in Q30 (rounded),
- * each sum <= 2^62, one rounding to Q20. */
-static pfx_status_t arc_cov(int32_t var, int32_t t2, uint32_t k, pfx_component_t *out)
+/* var u u^T + t2 v v^T (v the tangent) + N (the ring centre's covariance):
+ * pxx = var c^2 + t2 s^2 + nxx, pyy = var s^2 + t2 c^2 + nyy,
+ * pxy = (var - t2) c s + nxy.  Squares in Q30 (rounded), each sum <= 2^62,
+ * one rounding to Q20, then N added (int64, store_cov saturates). */
+static pfx_status_t arc_cov(const pfx_ring_t *g, int32_t t2, uint32_t k, pfx_component_t *out)
 {
+    int32_t var = g->var;
     int32_t c = dir_cos(k), s = dir_sin(k);
     int32_t c2 = (int32_t)pfx_mixture_mul32(c, c, 30u); /* [0, 2^30] */
     int32_t s2 = (int32_t)pfx_mixture_mul32(s, s, 30u);
     int32_t cs = (int32_t)pfx_mixture_mul32(c, s, 30u); /* |.| <= 2^29 */
-    return pfx_mixture_store_cov(pfx_mixture_round_small((int64_t)var * c2 + (int64_t)t2 * s2, 30u),
-                                 pfx_mixture_round_small(((int64_t)var - t2) * cs, 30u),
-                                 pfx_mixture_round_small((int64_t)var * s2 + (int64_t)t2 * c2, 30u), out);
+    return pfx_mixture_store_cov(pfx_mixture_round_small((int64_t)var * c2 + (int64_t)t2 * s2, 30u) + g->nxx,
+                                 pfx_mixture_round_small(((int64_t)var - t2) * cs, 30u) + g->nxy,
+                                 pfx_mixture_round_small((int64_t)var * s2 + (int64_t)t2 * c2, 30u) + g->nyy, out);
 }
 
 /* Q20 * Q30 -> Q10, rounded once (mul64: radial may exceed 2^31). */
@@ -333,7 +348,7 @@ pfx_status_t pfx_range_first_ring(const pfx_ring_t *rings, uint32_t n, const pfx
                 o->pxy = out[twin].pxy;
                 o->pyy = out[twin].pyy;
                 ++twin;
-            } else if (arc_cov(g->var, a.t2, dir, o) != PFX_OK) {
+            } else if (arc_cov(g, a.t2, dir, o) != PFX_OK) {
                 continue;
             }
             if (dir < PFX_RING_DIRECTIONS / 2u) {
@@ -410,11 +425,13 @@ static int bends(const pfx_component_t *c, const lin_t *l, int64_t limit)
     return 2 * st2 > limit;
 }
 
-/* round(sqrt(var)) in Q20 (var Q20 shifted by 20, < 2^51): the value of
- * pfx_fixed_sqrt_q(var, 20, 20), from the faster exact pfx_mixture_isqrt_round. */
+/* round(sqrt(var + spread)) in Q20 (the bound of the ring's variance, Q20
+ * shifted by 20, < 2^52): the value of pfx_fixed_sqrt_q(var + spread, 20, 20),
+ * from the faster exact pfx_mixture_isqrt_round. */
 static uint32_t ring_sd(const pfx_ring_t *g)
 {
-    return (uint32_t)pfx_mixture_isqrt_round((uint64_t)(g->var > 0 ? g->var : 0) << 20);
+    int64_t v = (int64_t)(g->var > 0 ? g->var : 0) + (g->spread > 0 ? g->spread : 0);
+    return (uint32_t)pfx_mixture_isqrt_round((uint64_t)v << 20);
 }
 
 int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_params_t *p)
@@ -536,6 +553,11 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
         phx = pfx_mixture_mul32(c->pxx, hx, 20u) + pfx_mixture_mul32(c->pxy, hy, 20u); /* <= 2^42 */
         phy = pfx_mixture_mul32(c->pxy, hx, 20u) + pfx_mixture_mul32(c->pyy, hy, 20u);
         s = pfx_mixture_mul(hx, phx, 30u) + pfx_mixture_mul(hy, phy, 30u) + (int64_t)g->var * 1024;
+        if (g->spread != 0) { /* the centre's variance along h: h^T N h (Q30), as h^T P h */
+            int64_t nhx = pfx_mixture_mul32(g->nxx, hx, 20u) + pfx_mixture_mul32(g->nxy, hy, 20u);
+            int64_t nhy = pfx_mixture_mul32(g->nxy, hx, 20u) + pfx_mixture_mul32(g->nyy, hy, 20u);
+            s += pfx_mixture_mul(hx, nhx, 30u) + pfx_mixture_mul(hy, nhy, 30u);
+        }
         if (s <= 0 || pfx_mixture_recip64((uint64_t)s, &rs) != PFX_OK) {
             return PFX_ERR_DEGENERATE;
         }
@@ -676,7 +698,7 @@ static pfx_status_t broad_core(const pfx_component_t *c, int32_t lam, const pfx_
         if (((mask[k >> 5] >> (k & 31u)) & 1u) == 0u) {
             continue;
         }
-        if (arc_cov(g->var, a.t2, k, &arc) != PFX_OK) {
+        if (arc_cov(g, a.t2, k, &arc) != PFX_OK) {
             continue;
         }
         /* arc centre - component mean, Q20: (centre - mean) * 2^10 + radial u (Q20 * Q30 >> 30) */
@@ -704,7 +726,7 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
 
 /*
  * The ring gate (reference ring_gate): the ring passes more than sqrt(gate)
- * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var +
+ * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var + spread +
  * lambda_max), with rho = |mean - centre| (rho2 = rho^2, Q20, <= 2^61).
  * No square root: with A = gate (var + lambda) (Q20) and num = r^2 + rho^2 - A,
  *   (rho - r)^2 > A  <=>  num > 2 r rho  <=>  num > 0 and num^2 > 4 r^2 rho^2
@@ -719,7 +741,7 @@ static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q1
     }
     r = g->radius < 0 ? 0 : g->radius;
     r2 = (int64_t)(int32_t)r * (int32_t)r;
-    a = pfx_mixture_mul(gate, (int64_t)g->var + (lam > 0 ? lam : 0), 16u);
+    a = pfx_mixture_mul(gate, (int64_t)g->var + (g->spread > 0 ? g->spread : 0) + (lam > 0 ? lam : 0), 16u);
     num = r2 + rho2 - a;
     return num > 0 && pfx_mixture_cmp_products_inline((uint64_t)num, (uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2) > 0;
 }

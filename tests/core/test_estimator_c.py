@@ -31,7 +31,7 @@ from peerfix.reference import mixture as M
 from peerfix.reference import node as N
 from peerfix.reference import ranging as R
 from peerfix.reference.mixture import Mixture
-from peerfix.reference.params import EstimatorParams
+from peerfix.reference.params import EstimatorParams, robust_preset
 
 ROOT = Path(__file__).resolve().parents[2]
 LN2 = math.log(2.0)
@@ -133,17 +133,29 @@ def params_c(p: EstimatorParams = PARAMS, blocked_weight: float = 0.0, blocked_b
     c.blocked_bias = rq(blocked_bias, 10)
     c.max_range = rq(max_range, 10)
     c.product_gate = rq(p.product_gate_sigma2, 16)
+    c.directional_spread = int(p.directional_spread)
     assert lib.pfx_params_check(c) == OK
     return c
 
 
-def ring_c(centre, radius: float, var: float, logw: float = 0.0):
-    """A pfx_ring_t and its float image (centre, radius, var)."""
+def ring_c(centre, radius: float, var: float, logw: float = 0.0, ncov=None):
+    """A pfx_ring_t and its float image (centre, radius, var); ncov: the centre's
+    covariance of a directional ring (its float image is in ring_ncov(g))."""
     g = ffi.new("pfx_ring_t *")
     g.log2w = rq(logw / LN2, 16)
     g.cx, g.cy = rq(centre[0], 10), rq(centre[1], 10)
     g.radius, g.var = rq(radius, 10), rq(var, 20)
+    if ncov is not None:
+        n = quantised(Mixture.single(np.zeros(2), ncov))
+        c = to_c(n)
+        g.nxx, g.nxy, g.nyy = c[0].pxx, c[0].pxy, c[0].pyy
+        g.spread = lib.pfx_mixture_max_eig(c)
     return g, np.array([g.cx, g.cy]) / 1024, g.radius / 1024, g.var / 2**20
+
+
+def ring_ncov(g) -> np.ndarray:
+    """The float image of a ring's centre covariance N."""
+    return np.array([[g.nxx, g.nxy], [g.nxy, g.nyy]]) / 2**20
 
 
 def random_cov(rng, scale: float, floor: float = 0.05) -> np.ndarray:
@@ -453,15 +465,16 @@ def test_rings_match_twin_plain_and_robust():
     rng = np.random.default_rng(10)
     rings = ffi.new("pfx_ring_t[16]")
     n_ptr = ffi.new("uint32_t *")
-    for blocked in (0.0, 0.1, 0.3):
-        pc = params_c(blocked_weight=blocked, blocked_bias=1.5)
+    for blocked, directional in [(0.0, False), (0.1, False), (0.3, False), (0.0, True), (0.3, True)]:
+        params = PARAMS.replace(directional_spread=directional)
+        pc = params_c(params, blocked_weight=blocked, blocked_bias=1.5)
         for _ in range(100):
             k = int(rng.integers(1, 9))
             m = quantised(Mixture(rng.normal(0, 1, k), rng.uniform(0, 30, (k, 2)),
                                   np.array([random_cov(rng, rng.uniform(0.001, 2)) for _ in range(k)])))  # fmt: skip
             r, s = rq(rng.uniform(0, 30), 10), rq(rng.uniform(0.05, 0.5), 10)
             assert lib.pfx_range_rings(belief_c(m), r, s, pc, rings, n_ptr) == OK
-            want = R.ring_messages(m, r / 1024, s / 1024, PARAMS, blocked, 1.5 if blocked else 0.0)
+            want = R.ring_messages(m, r / 1024, s / 1024, params, blocked, 1.5 if blocked else 0.0)
             assert n_ptr[0] == len(want)
             for q in range(len(want)):
                 g = rings[q]
@@ -469,6 +482,8 @@ def test_rings_match_twin_plain_and_robust():
                 assert (g.cx / 1024, g.cy / 1024) == tuple(want.centre[q])
                 assert g.radius / 1024 == pytest.approx(want.radius[q], abs=1e-12)
                 assert abs(g.var - want.var[q] * 2**20) <= 1.5  # sigma^2 exact + lambda_max within 1 LSB
+                assert abs(g.spread - want.spread[q] * 2**20) <= 1.5  # lambda_max within 1 LSB (0 unless directional)
+                np.testing.assert_array_equal(ring_ncov(g), want.ncov[q])  # the component's covariance, exactly
 
 
 def test_stride_matches_twin():
@@ -480,7 +495,8 @@ def test_stride_matches_twin():
         assert lib.pfx_range_stride(r, spacing, cap) == R.stride_for(r / 1024, spacing / 1024, cap)
 
 
-def test_first_ring_matches_twin():
+@pytest.mark.parametrize("directional", [False, True])
+def test_first_ring_matches_twin(directional):
     rng = np.random.default_rng(12)
     bounds = (0.0, 0.0, 30.0, 20.0)
     bq = ffi.new("pfx_len_q10_t[4]", [rq(b, 10) for b in bounds])
@@ -491,13 +507,15 @@ def test_first_ring_matches_twin():
     for _ in range(400):
         nr = int(rng.integers(1, 6))
         for k in range(nr):
+            ncov = random_cov(rng, rng.uniform(0.001, 1.0), floor=0.01) if directional else None
             g, *_ = ring_c(rng.uniform(-5, 35, 2), rng.choice([0.0, rng.uniform(0, 25)]), rng.uniform(0.005, 0.5),
-                           rng.normal(0, 1))  # fmt: skip
+                           rng.normal(0, 1), ncov=ncov)  # fmt: skip
             rings[k] = g[0]
         fr = R.Rings(np.array([rings[k].log2w * LN2 / 65536 for k in range(nr)]),
                      np.array([[rings[k].cx / 1024, rings[k].cy / 1024] for k in range(nr)]),
                      np.array([rings[k].radius / 1024 for k in range(nr)]),
-                     np.array([rings[k].var / 2**20 for k in range(nr)]))  # fmt: skip
+                     np.array([rings[k].var / 2**20 for k in range(nr)]),
+                     np.array([ring_ncov(rings[k]) for k in range(nr)]))  # fmt: skip
         assert lib.pfx_range_first_ring(rings, nr, bq, pc, out, n_ptr) == OK
         want, got = R.first_ring(fr, bounds, PARAMS), from_c(out, n_ptr[0])
         assert len(got) == len(want)  # same arcs kept (same directions, same box drops)
@@ -508,31 +526,37 @@ def test_first_ring_matches_twin():
             np.testing.assert_allclose(got.logw, want.logw, atol=PRODUCT_LOGW)
 
 
-def test_is_broad_and_compact_update_match_twin():
+@pytest.mark.parametrize("directional", [False, True])
+def test_is_broad_and_compact_update_match_twin(directional):
     rng = np.random.default_rng(13)
     pc = params_c()
     out = ffi.new("pfx_component_t *")
     broad = compact = 0
     for _ in range(3000):
         c = quantised(Mixture.single(rng.uniform(0, 40, 2), random_cov(rng, rng.uniform(0.001, 2))))
-        g, cen, rad, var = ring_c(rng.uniform(0, 40, 2), rng.uniform(0, 25), rng.uniform(0.005, 0.5))
-        want_broad = bool(R.is_broad(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]), PARAMS)[0])
+        ncov = random_cov(rng, rng.uniform(0.001, 1.0), floor=0.01) if directional else None
+        g, cen, rad, var = ring_c(rng.uniform(0, 40, 2), rng.uniform(0, 25), rng.uniform(0.005, 0.5), ncov=ncov)
+        nq = ring_ncov(g)[None]
+        bound = var + R.max_eig2(nq)  # the broad test's bound of the ring's variance
+        want_broad = bool(R.is_broad(c.mean, c.cov, cen[None], np.array([rad]), bound, PARAMS)[0])
         assert bool(lib.pfx_range_is_broad(to_c(c), g, pc)) == want_broad
         if want_broad:
             broad += 1
             continue
         compact += 1
         assert lib.pfx_range_compact(to_c(c), g, PARAMS.iekf_iterations, out) == OK
-        x, p, ll = R.compact_update(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]), PARAMS.iekf_iterations)
+        x, p, ll = R.compact_update(c.mean, c.cov, cen[None], np.array([rad]), np.array([var]), PARAMS.iekf_iterations,
+                                    ncov=nq if directional else None)  # fmt: skip
         got = from_c(out, 1)
         assert_spd(got)
         np.testing.assert_allclose(got.mean[0], x[0], atol=MEAN_M)
         np.testing.assert_allclose(got.cov[0], p[0], atol=COMPACT_COV_REL * np.abs(p[0]).max())
         assert abs(got.logw[0] - ll[0]) <= PRODUCT_LOGW + LOGW_REL * abs(ll[0])
-    assert broad > 300 and compact > 300  # both branches exercised
+    assert broad > (100 if directional else 300) and compact > 300  # both branches exercised (a wider bound: fewer broad)
 
 
-def test_broad_update_matches_twin():
+@pytest.mark.parametrize("directional", [False, True])
+def test_broad_update_matches_twin(directional):
     rng = np.random.default_rng(14)
     pc = params_c()
     out = ffi.new("pfx_component_t[16]")
@@ -540,10 +564,12 @@ def test_broad_update_matches_twin():
     arcs = empty = 0
     for _ in range(2000):
         c = quantised(Mixture.single(rng.uniform(0, 40, 2), random_cov(rng, rng.uniform(0.01, 20))))
+        ncov = random_cov(rng, rng.uniform(0.001, 1.0), floor=0.01) if directional else None
         g, cen, rad, var = ring_c(c.mean[0] + rng.normal(0, 15, 2), rng.choice([0.0, rng.uniform(0, 25)]),
-                                  rng.uniform(0.005, 0.5))  # fmt: skip
+                                  rng.uniform(0.005, 0.5), ncov=ncov)  # fmt: skip
         assert lib.pfx_range_broad(to_c(c), g, pc, out, n_ptr) == OK
-        want, got = R.broad_update(c.mean[0], c.cov[0], cen, rad, var, PARAMS), from_c(out, n_ptr[0])
+        want = R.broad_update(c.mean[0], c.cov[0], cen, rad, var, PARAMS, ring_ncov(g))
+        got = from_c(out, n_ptr[0])
         assert len(got) == len(want)  # same window, same stride, same directions
         if not len(want):
             empty += 1
@@ -662,8 +688,9 @@ def make_node(pc=None, bounds=BOUNDS):
     return node
 
 
-def random_inbox(rng, truth, n_anchors: int, n_agents: int, sigma: float = 0.1):
-    """(pfx_inbox_t, list of twin Received) for the same quantised broadcasts, in a random arrival order."""
+def random_inbox(rng, truth, n_anchors: int, n_agents: int, sigma: float = 0.1, elongated: bool = False):
+    """(pfx_inbox_t, list of twin Received) for the same quantised broadcasts, in a random arrival order.
+    elongated: the agents' main components have axes 4:1 in standard deviation, at random angles."""
     items = []
     for _ in range(n_anchors):
         a = rng.uniform(0, 40, 2)
@@ -671,10 +698,15 @@ def random_inbox(rng, truth, n_anchors: int, n_agents: int, sigma: float = 0.1):
     for _ in range(n_agents):
         pos = truth + rng.normal(0, 8, 2)
         sd = rng.uniform(0.05, 1.2)
-        m = Mixture(np.zeros(1), (pos + rng.normal(0, sd, 2))[None], (np.eye(2) * 2 * sd**2)[None])
+        main = np.eye(2) * 2 * sd**2
+        if elongated:
+            a = rng.uniform(0, np.pi)
+            rot = np.array([[np.cos(a), -np.sin(a)], [np.sin(a), np.cos(a)]])
+            main = rot @ np.diag([8 * sd**2, sd**2 / 2]) @ rot.T
+        m = Mixture(np.zeros(1), (pos + rng.normal(0, sd, 2))[None], main[None])
         if rng.random() < 0.3:
             m = Mixture(np.log([0.7, 0.3]), np.array([pos, pos + rng.normal(0, 5, 2)]),
-                        np.array([np.eye(2) * 2 * sd**2, np.eye(2) * 1.5]))  # fmt: skip
+                        np.array([main, np.eye(2) * 1.5]))  # fmt: skip
         items.append((m, np.linalg.norm(truth - pos) + rng.normal(0, sigma), False))
     inbox = ffi.new("pfx_inbox_t *")
     received = []
@@ -735,6 +767,31 @@ def test_node_update_robust_and_tracking_prior_match_twin():
         diffs.append(math.hypot(est.x / 1024 - ref.mean[0], est.y / 1024 - ref.mean[1]))
         assert want is not None
     assert np.max(diffs) <= UPDATE_POSITION_M and np.median(diffs) <= UPDATE_MEDIAN_M
+
+
+@pytest.mark.parametrize("blocked_weight", [0.0, 0.2])
+def test_node_update_directional_spread_with_elongated_neighbours_matches_twin(blocked_weight):
+    # The robust preset's reduction settings with rings widened along each line of sight.
+    rng = np.random.default_rng(17)
+    params = robust_preset(PARAMS).replace(robust=blocked_weight > 0, directional_spread=True)
+    pc = params_c(params, blocked_weight=blocked_weight, blocked_bias=1.0)
+    blocked = N.BlockedModel(blocked_weight, 1.0 if blocked_weight else 0.0)
+    ws = ffi.new("pfx_workspace_t *")
+    est = ffi.new("pfx_estimate_t *")
+    diffs = []
+    for _ in range(120):
+        node = make_node(pc)
+        truth = rng.uniform(5, 35, 2)
+        inbox, received = random_inbox(rng, truth, int(rng.integers(2, 5)), int(rng.integers(1, 5)), elongated=True)
+        assert lib.pfx_node_update(node, inbox, ws) == OK
+        want = N.update(None, received, BOUNDS, params, blocked)
+        got = from_c(node.belief.comp, node.belief.count)
+        assert 1 <= len(got) <= params.max_components
+        assert_spd(got)
+        assert lib.pfx_node_estimate(node, est) == OK
+        ref = N.read_estimate(want, BOUNDS, params)
+        diffs.append(math.hypot(est.x / 1024 - ref.mean[0], est.y / 1024 - ref.mean[1]))
+    assert np.max(diffs) <= UPDATE_POSITION_M and np.median(diffs) <= UPDATE_MEDIAN_M, (np.max(diffs), np.median(diffs))
 
 
 def test_update_with_nothing_heard_is_the_prior():
@@ -838,7 +895,7 @@ def update_error_cases():
                         ("prune_log2_ratio", -(25 << 16)), ("broadcast_inflation", 0), ("censor_spread", -1),
                         ("mode_gate", -1), ("mode_min_weight", (1 << 30) + 1), ("blocked_weight", 1 << 30),
                         ("blocked_bias", -1), ("max_range", 0), ("max_range", (1 << 24) + 1),
-                        ("product_gate", -1)]:  # fmt: skip
+                        ("product_gate", -1), ("directional_spread", 2)]:  # fmt: skip
         cases.append((f"param {name}={value}", param(name, value), Status.ERR_ARG))
     return cases
 

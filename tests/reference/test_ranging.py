@@ -432,3 +432,68 @@ def test_compact_update_short_step_stop_is_within_the_tolerance():
     x_full, _, ll_full = compact_update(mean, cov, centre, radius, var, 8, 0.0, 0.0)
     assert np.max(np.hypot(*(x_stop - x_full).T)) <= 1e-3
     np.testing.assert_allclose(ll_stop, ll_full, atol=5e-3)  # measured worst 2.2e-3 (0.2 % of the weight)
+
+
+# --- directional spread ------------------------------------------------------------------
+# A neighbour's position c ~ N(0, P) makes the range likelihood at x the
+# average of N(r; ||x - c||, s^2) over c.  To first order (the delta method,
+# common practice) its variance is s^2 + h^T P h along the line of sight h;
+# the bound rule uses s^2 + lambda_max(P) in every direction.  The reference
+# density is that average by Gauss-Legendre quadrature (scipy.special) over
+# +-7 standard deviations of c.  Tolerances: L1 distance of two densities in r
+# (0 = equal, 2 = disjoint); the first-order rule misses only the curvature
+# term (sd_perp^2 / 2 rho: 3 cm here) across the long axis.
+DIRECTIONAL_L1_MAX = 0.2
+DIRECTIONAL_GAIN_MIN = 5.0  # the bound rule's L1 over the directional rule's, off the long axis
+
+
+def _marginal_range_density(x, neighbour_cov, sigma, rs):
+    from scipy.special import roots_legendre
+
+    sx, sy = np.sqrt(np.diag(neighbour_cov))  # axis-aligned neighbour covariance
+    gx, wx = roots_legendre(400)
+    gy, wy = roots_legendre(60)
+    cx, cy = 7 * sx * gx, 7 * sy * gy
+    weights = (7 * sx * wx * norm.pdf(cx, 0, sx))[:, None] * (7 * sy * wy * norm.pdf(cy, 0, sy))[None, :]
+    d = np.hypot(x[0] - cx[:, None], x[1] - cy[None, :])
+    return np.array([np.sum(weights * norm.pdf(r, d, sigma)) for r in rs])
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 45.0, 90.0])
+def test_directional_spread_follows_the_exact_marginal_likelihood(angle_deg):
+    neighbour_cov = np.diag([0.8, 0.02])  # long axis along x
+    sigma = 0.1
+    a = np.radians(angle_deg)
+    x = 12.0 * np.array([np.cos(a), np.sin(a)])
+    rs = np.linspace(9.5, 14.5, 201)
+    dr = rs[1] - rs[0]
+    n = rs.size
+    exact = _marginal_range_density(x, neighbour_cov, sigma, rs)
+    point = np.repeat(x[None], n, 0), np.repeat(1e-9 * np.eye(2)[None], n, 0), np.zeros((n, 2)), rs
+    directional = np.exp(compact_update(*point, np.full(n, sigma**2), 3, ncov=np.repeat(neighbour_cov[None], n, 0))[2])
+    bound = np.exp(compact_update(*point, np.full(n, sigma**2 + max_eig2(neighbour_cov[None])[0]), 3)[2])
+    l1_dir = np.abs(directional - exact).sum() * dr
+    l1_bound = np.abs(bound - exact).sum() * dr
+    assert l1_dir <= DIRECTIONAL_L1_MAX, l1_dir
+    if angle_deg == 0.0:
+        assert l1_dir == pytest.approx(l1_bound, abs=1e-9)  # along the long axis both rules are the same
+    else:
+        assert l1_bound >= DIRECTIONAL_GAIN_MIN * l1_dir, (l1_bound, l1_dir)
+
+
+def test_directional_rings_keep_the_neighbour_covariance_and_the_bound():
+    params = PARAMS.replace(directional_spread=True)
+    m = Mixture(np.log([0.6, 0.4]), np.array([[1.0, 2.0], [3.0, 4.0]]),
+                np.array([[[0.5, 0.1], [0.1, 0.05]], [[0.02, 0.0], [0.0, 0.3]]]))  # fmt: skip
+    rings = ring_messages(m, 10.0, 0.1, params, 0.2, 1.0)
+    np.testing.assert_allclose(rings.var, [0.01, 0.01, 0.01 + 1.0, 0.01 + 1.0])  # the range's own variance
+    np.testing.assert_array_equal(rings.ncov, np.concatenate([m.cov, m.cov]))
+    np.testing.assert_allclose(rings.spread, np.tile(max_eig2(m.cov), 2))
+    plain = ring_messages(m, 10.0, 0.1, PARAMS, 0.2, 1.0)
+    # the bound of the variance in any direction is the bound rule's ring variance
+    np.testing.assert_allclose(rings.var + rings.spread, plain.var)
+    # an arc of a directional ring is the bound-free arc convolved with the neighbour's position
+    arcs = first_ring(rings, (-50.0, -50.0, 50.0, 50.0), params)
+    bare = first_ring(Rings(rings.logw, rings.centre, rings.radius, rings.var), (-50.0, -50.0, 50.0, 50.0), params)
+    per_ring = len(arcs) // len(rings)
+    np.testing.assert_allclose(arcs.cov - bare.cov, np.repeat(rings.ncov, per_ring, axis=0), atol=1e-12)

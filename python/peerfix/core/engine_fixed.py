@@ -89,6 +89,7 @@ def c_params(params: EstimatorParams, blocked: BlockedModel, max_range_m: float)
     p.blocked_bias = len_q(blocked.ring_offset_m)
     p.max_range = len_q(max_range_m)
     p.product_gate = to_q(params.product_gate_sigma2, RATIO_FRAC)
+    p.directional_spread = 1 if params.directional_spread else 0
     check(lib.pfx_params_check(p), "pfx_params_check")
     return p
 

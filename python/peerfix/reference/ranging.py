@@ -1,10 +1,19 @@
 """Range update in float64: ring messages and their product with a belief.
 
 A neighbour's belief component (weight w, mean c, covariance P) and a measured
-range r make a ring message: the likelihood N(r; ||x - c||, s^2) with
-s^2 = sigma_r^2 + the component's largest variance (a conservative stand-in for
-its spread along the unknown line of sight).  With the robust likelihood a
-second, wider ring at r - bias carries the blocked-path share.
+range r make a ring message: the likelihood N(r; ||x - c||, s^2) where s^2
+holds sigma_r^2 and the neighbour's own spread, by one of two rules
+(EstimatorParams.directional_spread):
+- bound (default): the component's largest variance lambda_max(P) is added
+  to the ring's variance, whatever the direction;
+- directional: P is kept beside the ring.  A compact update adds h^T P h, the
+  neighbour's variance along the line of sight h of each linearisation (the
+  first-order variance of ||x - c|| in c); an arc adds P to its covariance
+  (the arc convolved with the neighbour's position).  An elongated neighbour
+  then widens the ring only where its long axis points along the line of sight.
+Gates and the broad test use the bound var + lambda_max(P) either way.
+With the robust likelihood a second, wider ring at r - bias carries the
+blocked-path share.
 
 A belief component meets a ring in one of two ways:
 - compact (small against the ring's curvature): an iterated extended Kalman
@@ -48,7 +57,15 @@ class Rings:
     logw: np.ndarray  # (m,) log weight of the ring within the message
     centre: np.ndarray  # (m, 2)
     radius: np.ndarray  # (m,)
-    var: np.ndarray  # (m,) radial variance s^2
+    var: np.ndarray  # (m,) radial variance: sigma_r^2 (+ bias^2), + lambda_max(P) unless directional
+    ncov: np.ndarray | None = None  # (m, 2, 2) the neighbour's covariance P when directional, else zeros
+    spread: np.ndarray | None = None  # (m,) lambda_max(ncov): var + spread bounds the variance in any direction
+
+    def __post_init__(self) -> None:
+        if self.ncov is None:
+            self.ncov = np.zeros((len(self.logw), 2, 2))
+        if self.spread is None:
+            self.spread = max_eig2(self.ncov)
 
     def __len__(self) -> int:
         return int(self.logw.shape[0])
@@ -64,12 +81,18 @@ def ring_messages(
 ) -> Rings:
     """Rings for the received (already inflated) belief of one neighbour."""
     spread = max_eig2(neighbour.cov)
-    var = sigma_m * sigma_m + spread
+    if params.directional_spread:
+        var = np.full(len(neighbour), sigma_m * sigma_m)
+        ncov = neighbour.cov.copy()
+    else:
+        var = sigma_m * sigma_m + spread
+        ncov = np.zeros_like(neighbour.cov)
+        spread = np.zeros_like(spread)
     logw = neighbour.logw
     centre = neighbour.mean
     radius = np.full(len(neighbour), float(range_m))
     if blocked_weight <= 0.0:
-        return Rings(logw.copy(), centre.copy(), radius, var)
+        return Rings(logw.copy(), centre.copy(), radius, var, ncov, spread)
     # Blocked path: r = d + b with b ~ Exp(mean beta): a ring at r - beta with
     # variance s^2 + beta^2 (moment match), carrying the blocked share.
     los = np.log1p(-blocked_weight)
@@ -79,6 +102,8 @@ def ring_messages(
         np.concatenate([centre, centre]),
         np.concatenate([radius, np.maximum(radius - blocked_bias_m, 0.0)]),
         np.concatenate([var, var + blocked_bias_m**2]),
+        np.concatenate([ncov, ncov]),
+        np.concatenate([spread, spread]),
     )
 
 
@@ -94,8 +119,12 @@ def stride_for(radius: float, spacing_m: float, max_arcs_full: int) -> int:
     return stride
 
 
-def arc_gaussians(centre, radius: float, var: float, dirs: np.ndarray, stride: int, params: EstimatorParams):
-    """Arcs of one ring at table directions `dirs`: means (a,2), covs (a,2,2), log arc length."""
+def arc_gaussians(centre, radius: float, var: float, dirs: np.ndarray, stride: int, params: EstimatorParams,
+                  ncov=None):
+    """Arcs of one ring at table directions `dirs`: means (a,2), covs (a,2,2), log arc length.
+
+    ncov (2,2), the neighbour's covariance of a directional ring (else zeros),
+    is added to every arc: the arc convolved with the neighbour's position."""
     spacing = 2.0 * np.pi * radius * stride / RING_DIRECTIONS
     u = DIRECTIONS[dirs]
     v = NORMALS[dirs]
@@ -107,6 +136,8 @@ def arc_gaussians(centre, radius: float, var: float, dirs: np.ndarray, stride: i
     inward = t2 / (2.0 * radius) if radius > 0 else 0.0
     mean = centre[None, :] + max(radius - inward, 0.0) * u
     cov = var * u[:, :, None] * u[:, None, :] + t2 * v[:, :, None] * v[:, None, :]
+    if ncov is not None:
+        cov = cov + ncov[None]
     return mean, cov, float(np.log(max(spacing, 1e-9)))
 
 
@@ -124,7 +155,8 @@ def first_ring(rings: Rings, bounds_m, params: EstimatorParams) -> Mixture:
     for k in range(len(rings)):
         stride = stride_for(rings.radius[k], params.ring_arc_spacing_m, per_ring)
         dirs = np.arange(0, RING_DIRECTIONS, stride)
-        mean, cov, log_len = arc_gaussians(rings.centre[k], rings.radius[k], rings.var[k], dirs, stride, params)
+        mean, cov, log_len = arc_gaussians(rings.centre[k], rings.radius[k], rings.var[k], dirs, stride, params,
+                                           rings.ncov[k])
         inside = (mean[:, 0] >= xmin) & (mean[:, 0] <= xmax) & (mean[:, 1] >= ymin) & (mean[:, 1] <= ymax)
         n_in = int(inside.sum())
         if n_in == 0:
@@ -157,13 +189,15 @@ def is_broad(mean, cov, centre, radius, var, params: EstimatorParams) -> np.ndar
 
 
 def compact_update(
-    mean, cov, centre, radius, var, iterations: int, gate_sigma2: float = 0.0, step_tol_m: float = 0.0
+    mean, cov, centre, radius, var, iterations: int, gate_sigma2: float = 0.0, step_tol_m: float = 0.0,
+    ncov=None,
 ):
     """Iterated extended Kalman update of (mean, cov) by the range to `centre`.
 
     Vectorised over n pairs.  Returns posterior means, covariances and the log
     innovation likelihood log N(r; h(x_n) + H (mu - x_n), H P H^T + s^2) at
-    the last linearisation point x_n.
+    the last linearisation point x_n; with ncov (n,2,2), the ring centre's
+    covariance, s^2 = var + h^T ncov h at each linearisation.
 
     A pair stops relinearising early (the defaults keep every iteration):
     - gate (gate_sigma2 > 0): when its squared normalised innovation at the
@@ -189,6 +223,8 @@ def compact_update(
         predicted[rows] = rho + np.einsum("ni,ni->n", h, m - xr)
         ph = np.einsum("nij,nj->ni", p, h)
         s[rows] = np.einsum("ni,ni->n", h, ph) + var[rows]
+        if ncov is not None:
+            s[rows] += np.einsum("ni,nij,nj->n", h, ncov[rows], h)
         gain[rows] = ph / s[rows][:, None]
         x[rows] = m + gain[rows] * (radius[rows] - predicted[rows])[:, None]
         step = x[rows] - xr
@@ -207,7 +243,7 @@ def compact_update(
     return x, post, loglik
 
 
-def broad_update(mean, cov, centre, radius: float, var: float, params: EstimatorParams) -> Mixture:
+def broad_update(mean, cov, centre, radius: float, var: float, params: EstimatorParams, ncov=None) -> Mixture:
     """One broad component times one ring: arcs within the component's window."""
     d = mean - centre
     rho = float(np.hypot(d[0], d[1]))
@@ -231,7 +267,7 @@ def broad_update(mean, cov, centre, radius: float, var: float, params: Estimator
     if dirs.size == 0:
         # Window narrower than the table: the nearest direction carries it.
         dirs = np.array([int(np.argmax(cosines[::stride])) * stride])
-    a_mean, a_cov, log_len = arc_gaussians(centre, radius, var, dirs, stride, params)
+    a_mean, a_cov, log_len = arc_gaussians(centre, radius, var, dirs, stride, params, ncov)
     n = dirs.size
     mu, p, logz = gaussian_product(
         np.broadcast_to(mean, (n, 2)), np.broadcast_to(cov, (n, 2, 2)), a_mean, a_cov
@@ -255,15 +291,15 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     ri = np.tile(np.arange(nr), nb)
     if params.product_gate_sigma2 > 0.0:
         # Pairs whose ring passes far from the component are not formed (ring_gate).
-        keep = ring_gate(belief.mean[bi], belief.cov[bi], rings.centre[ri], rings.radius[ri], rings.var[ri],
-                         params.product_gate_sigma2)
+        keep = ring_gate(belief.mean[bi], belief.cov[bi], rings.centre[ri], rings.radius[ri],
+                         rings.var[ri] + rings.spread[ri], params.product_gate_sigma2)
         bi, ri = bi[keep], ri[keep]
     if bi.size == 0:
         return Mixture.empty()
     mean, cov = belief.mean[bi], belief.cov[bi]
-    centre, radius, var = rings.centre[ri], rings.radius[ri], rings.var[ri]
+    centre, radius, var, ncov = rings.centre[ri], rings.radius[ri], rings.var[ri], rings.ncov[ri]
     base = belief.logw[bi] + rings.logw[ri]
-    broad = is_broad(mean, cov, centre, radius, var, params)
+    broad = is_broad(mean, cov, centre, radius, var + rings.spread[ri], params)
 
     npairs = bi.size
     out_logw = np.empty(npairs)
@@ -272,7 +308,8 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     compact = np.flatnonzero(~broad)
     if compact.size:
         x, p, ll = compact_update(mean[compact], cov[compact], centre[compact], radius[compact], var[compact],
-                                  params.iekf_iterations, params.product_gate_sigma2, IEKF_STEP_TOL_M)
+                                  params.iekf_iterations, params.product_gate_sigma2, IEKF_STEP_TOL_M,
+                                  ncov[compact] if params.directional_spread else None)
         out_logw[compact] = base[compact] + ll
         out_mean[compact] = x
         out_cov[compact] = p
@@ -285,7 +322,7 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     for k in np.flatnonzero(broad):
         if k > start:
             pieces.append(Mixture(out_logw[start:k], out_mean[start:k], out_cov[start:k]))
-        arcs = broad_update(mean[k], cov[k], centre[k], float(radius[k]), float(var[k]), params)
+        arcs = broad_update(mean[k], cov[k], centre[k], float(radius[k]), float(var[k]), params, ncov[k])
         arcs.logw = arcs.logw + base[k]
         pieces.append(arcs)
         start = k + 1
