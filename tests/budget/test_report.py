@@ -200,3 +200,54 @@ def test_full_capture_covers_every_update_configuration():
     # a smaller selection is part of the larger one (quick figures never exceed the full ones' calls)
     quick_calls = set(capture(100, 20).all_calls())
     assert quick_calls <= set(full.all_calls())
+
+
+def _robust_calls():
+    """A few calls captured from a short run with the robust preset on blocked paths."""
+    from peerfix.budget.capture import Run, capture
+
+    run = Run("open-field", 0, 4, iterations=2, robust=True, blocked_probability=0.2)
+    captured = capture(4, 2, runs=(run,))
+    return captured, [c for calls in captured.calls.values() for c in calls]
+
+
+def test_robust_preset_runs_replay_bit_exact_with_its_settings():
+    """The robust preset's code paths (two rings per range, rings along the line of
+    sight, working cap 16) are replayed on the target like the defaults."""
+    from peerfix.budget.build import TargetConfig
+    from peerfix.budget.capture import ROBUST_RUN_ITERATIONS, ROBUST_RUNS
+    from peerfix.budget.report import budget_report
+    from peerfix.core._pfx import ffi
+    from peerfix.reference.params import ROBUST_ITERATIONS, ROBUST_PRESET
+
+    assert ROBUST_RUN_ITERATIONS == ROBUST_ITERATIONS
+    assert all(r.robust and r.iterations == ROBUST_ITERATIONS for r in ROBUST_RUNS)
+    captured, calls = _robust_calls()
+    updates = captured.calls["pfx_node_update"]
+    assert updates
+    for call in updates:  # the node state going in carries the preset's settings
+        buf = bytearray(call.args[0].data)  # kept alive while node points into it
+        node = ffi.cast("pfx_node_t *", ffi.from_buffer(buf))
+        assert node.params.directional_spread == 1 and node.params.working_cap == ROBUST_PRESET["working_cap"]
+        assert node.params.blocked_weight > 0
+    doc = budget_report(TargetConfig("cortex-m4", "O2"), calls=calls)
+    assert doc["mismatched_calls"] == 0 and doc["bit_exact_calls"] == len(calls)
+
+
+def test_command_robust_reports_the_settings_and_checks_no_budget(monkeypatch):
+    import peerfix.budget.report as report
+
+    _, calls = _robust_calls()
+    seen = {}
+
+    def fake_capture(*args, **kw):
+        seen.update(kw)
+        return calls
+
+    monkeypatch.setattr(report, "capture", fake_capture)
+    status, stdout = run_cli(["budget", "--robust", "--quick", "--json"])  # the repository's budget.toml exists
+    doc = json.loads(stdout)
+    assert status == 0
+    assert seen["runs"] == report.ROBUST_RUNS
+    assert doc["settings"] == "robust preset"
+    assert "budget" not in doc  # the release limits are for the defaults: not applied

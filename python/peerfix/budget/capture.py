@@ -157,10 +157,15 @@ class Run:
     K: int
     epochs: int = 1  # > 1: the same ranges again every second (static tags, tracking prior)
     iterations: int = 4
+    robust: bool = False  # the robust preset (peerfix.reference.params.robust_preset) ...
+    blocked_probability: float | None = None  # ... on a site with this blocked-path share (bias mean 1 m)
 
     @property
     def name(self) -> str:
-        return f"{self.preset} seed {self.seed} K={self.K}" + (f" {self.epochs} epochs" if self.epochs > 1 else "")
+        name = f"{self.preset} seed {self.seed} K={self.K}" + (f" {self.epochs} epochs" if self.epochs > 1 else "")
+        if self.blocked_probability is not None:
+            name += f" {self.blocked_probability:.0%} blocked"
+        return name + (f" robust preset {self.iterations} iterations" if self.robust else "")
 
 
 RUNS: tuple[Run, ...] = (
@@ -169,6 +174,16 @@ RUNS: tuple[Run, ...] = (
     Run("open-field", 2, 4),
     *(Run("cold-store", 0, k, epochs=2) for k in (2, 4, 8)),
     *(Run("mine-drift", 0, k, epochs=2) for k in (1, 4, 8)),
+)
+
+# `peerfix budget --robust`: what the robust preset costs on the tag, on the
+# networks it is measured on (open field, 20 % of ranges blocked) and on the
+# cold store (racks block most paths), at the iterations it is measured with.
+ROBUST_RUN_ITERATIONS = 20  # = peerfix.reference.params.ROBUST_ITERATIONS (checked by a test)
+ROBUST_RUNS: tuple[Run, ...] = (
+    *(Run("open-field", s, 4, iterations=ROBUST_RUN_ITERATIONS, robust=True, blocked_probability=0.2)
+      for s in (0, 1)),
+    Run("cold-store", 0, 4, epochs=2, iterations=ROBUST_RUN_ITERATIONS, robust=True),
 )
 
 
@@ -303,11 +318,16 @@ def run_and_record(run: Run, recorder: Recorder) -> None:
     """One scenario run of the fixed engine, every entry-point call offered to recorder
     (peerfix.runner.run_scenario with the recording engine in place of its own)."""
     from peerfix.reference import EstimatorParams
+    from peerfix.reference.params import robust_preset
     from peerfix.runner import blocked_model, run_scenario
     from peerfix.simulate import simulate
 
-    scenario = with_epochs(simulate(run.preset, run.seed), run.epochs)
+    site = {} if run.blocked_probability is None else {"blocked_probability": run.blocked_probability,
+                                                       "blocked_bias_mean_m": 1.0}
+    scenario = with_epochs(simulate(run.preset, run.seed, **site), run.epochs)
     params = EstimatorParams(max_components=run.K)
+    if run.robust:
+        params = robust_preset(params)
     recorder.source = run.name
     eng = CaptureEngine(recorder, params, blocked_model(scenario, params))
     run_scenario(scenario, eng, params, run.iterations, process_var_m2_per_s=PREDICT_Q_M2_PER_S, score=False)
