@@ -68,14 +68,15 @@ typedef struct {
 } pfx_params_t;
 
 /* One ring message: N(r; ||x - c||, var + h^T N h), weight 2^log2w; N is the
- * centre's covariance (zero unless directional_spread), spread = lambda_max(N),
- * so var + spread bounds the ring's variance in any direction (gates, broad test). */
+ * centre's covariance (zero unless directional_spread).  var_bound =
+ * var + lambda_max(N) (saturated) bounds the ring's variance in any direction:
+ * the gates and the broad test use it. */
 typedef struct {
     pfx_log2_q16_t log2w;
     pfx_len_q10_t cx, cy;
     pfx_len_q10_t radius;
     pfx_area_q20_t var;
-    pfx_area_q20_t spread;
+    pfx_area_q20_t var_bound;
     pfx_area_q20_t nxx, nxy, nyy;
 } pfx_ring_t;
 
@@ -91,10 +92,10 @@ typedef struct {
 void pfx_range_direction(uint32_t k, int32_t *ux, int32_t *uy);
 
 /* Rings of one received belief and range (reference ring_messages):
- * var = sigma^2 + lambda_max(P) (Q20, saturated), N = 0, spread = 0; with
- * directional_spread var = sigma^2, N = P, spread = lambda_max(P); with blocked_weight > 0
+ * var = var_bound = sigma^2 + lambda_max(P) (Q20, saturated), N = 0; with
+ * directional_spread var = sigma^2, N = P, var_bound = var + lambda_max(P); with blocked_weight > 0
  * the line-of-sight rings (log2(1 - w) added) then the blocked rings
- * (log2 w, radius max(r - bias, 0), var + bias^2).  *n = count of rings.
+ * (log2 w, radius max(r - bias, 0), var and var_bound + bias^2).  *n = count of rings.
  * Checks: belief count <= PFX_MAX_COMPONENTS (PFX_ERR_DEGENERATE),
  * sigma > 0 (PFX_ERR_ARG), range >= 0 (PFX_ERR_RANGE). */
 pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range, pfx_len_q10_t sigma,

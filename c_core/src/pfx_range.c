@@ -187,28 +187,25 @@ pfx_status_t pfx_range_rings(const pfx_belief_t *neighbour, pfx_len_q10_t range,
         g->cx = c->x;
         g->cy = c->y;
         g->radius = range;
+        g->var_bound = pfx_mixture_sat32(s2 + pfx_mixture_max_eig(c));
         if (p->directional_spread != 0u) {
             g->var = pfx_mixture_sat32(s2);
-            g->spread = pfx_mixture_max_eig(c);
             g->nxx = c->pxx;
             g->nxy = c->pxy;
             g->nyy = c->pyy;
         } else {
-            g->var = pfx_mixture_sat32(s2 + pfx_mixture_max_eig(c));
-            g->spread = g->nxx = g->nxy = g->nyy = 0;
+            g->var = g->var_bound;
+            g->nxx = g->nxy = g->nyy = 0;
         }
         if (robust) {
             int64_t bias = p->blocked_bias > 0 ? p->blocked_bias : 0;
+            int64_t b2 = pfx_mixture_mul(bias, bias, 0u);
             pfx_ring_t *h = &rings[nb + k];
+            *h = *g; /* the same centre and N */
             h->log2w = pfx_fixed_add_sat(c->log2w, nlos);
-            h->cx = c->x;
-            h->cy = c->y;
             h->radius = (pfx_len_q10_t)(((int64_t)range - bias > 0) ? (int64_t)range - bias : 0);
-            h->var = pfx_mixture_sat32((int64_t)g->var + pfx_mixture_mul(bias, bias, 0u));
-            h->spread = g->spread;
-            h->nxx = g->nxx;
-            h->nxy = g->nxy;
-            h->nyy = g->nyy;
+            h->var = pfx_mixture_sat32((int64_t)g->var + b2);
+            h->var_bound = pfx_mixture_sat32((int64_t)g->var_bound + b2);
         }
     }
     *n = robust ? 2u * nb : nb;
@@ -425,13 +422,12 @@ static int bends(const pfx_component_t *c, const lin_t *l, int64_t limit)
     return 2 * st2 > limit;
 }
 
-/* round(sqrt(var + spread)) in Q20 (the bound of the ring's variance, Q20
- * shifted by 20, < 2^52): the value of pfx_fixed_sqrt_q(var + spread, 20, 20),
- * from the faster exact pfx_mixture_isqrt_round. */
+/* round(sqrt(var_bound)) in Q20 (var_bound Q20 shifted by 20, < 2^51): the
+ * value of pfx_fixed_sqrt_q(var_bound, 20, 20), from the faster exact
+ * pfx_mixture_isqrt_round. */
 static uint32_t ring_sd(const pfx_ring_t *g)
 {
-    int64_t v = (int64_t)(g->var > 0 ? g->var : 0) + (g->spread > 0 ? g->spread : 0);
-    return (uint32_t)pfx_mixture_isqrt_round((uint64_t)v << 20);
+    return (uint32_t)pfx_mixture_isqrt_round((uint64_t)(g->var_bound > 0 ? g->var_bound : 0) << 20);
 }
 
 int pfx_range_is_broad(const pfx_component_t *c, const pfx_ring_t *g, const pfx_params_t *p)
@@ -553,7 +549,7 @@ static pfx_status_t compact_core(const pfx_component_t *c, const pfx_ring_t *g, 
         phx = pfx_mixture_mul32(c->pxx, hx, 20u) + pfx_mixture_mul32(c->pxy, hy, 20u); /* <= 2^42 */
         phy = pfx_mixture_mul32(c->pxy, hx, 20u) + pfx_mixture_mul32(c->pyy, hy, 20u);
         s = pfx_mixture_mul(hx, phx, 30u) + pfx_mixture_mul(hy, phy, 30u) + (int64_t)g->var * 1024;
-        if (g->spread != 0) { /* the centre's variance along h: h^T N h (Q30), as h^T P h */
+        if ((g->nxx | g->nyy) != 0) { /* N != 0 (PSD: zero diagonal, zero N): h^T N h (Q30), as h^T P h */
             int64_t nhx = pfx_mixture_mul32(g->nxx, hx, 20u) + pfx_mixture_mul32(g->nxy, hy, 20u);
             int64_t nhy = pfx_mixture_mul32(g->nxy, hx, 20u) + pfx_mixture_mul32(g->nyy, hy, 20u);
             s += pfx_mixture_mul(hx, nhx, 30u) + pfx_mixture_mul(hy, nhy, 30u);
@@ -726,9 +722,9 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
 
 /*
  * The ring gate (reference ring_gate): the ring passes more than sqrt(gate)
- * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var + spread +
+ * upper-bound sigmas from the component mean, (rho - r)^2 > gate (var_bound +
  * lambda_max), with rho = |mean - centre| (rho2 = rho^2, Q20, <= 2^61).
- * No square root: with A = gate (var + lambda) (Q20) and num = r^2 + rho^2 - A,
+ * No square root: with A = gate (var_bound + lambda) (Q20) and num = r^2 + rho^2 - A,
  *   (rho - r)^2 > A  <=>  num > 2 r rho  <=>  num > 0 and num^2 > 4 r^2 rho^2
  * (exact, 128-bit).  r <= 2^24 (Q10), lambda <= 2^32, A < 2^63: no overflow.
  * gate = 0: off.
@@ -741,7 +737,7 @@ static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q1
     }
     r = g->radius < 0 ? 0 : g->radius;
     r2 = (int64_t)(int32_t)r * (int32_t)r;
-    a = pfx_mixture_mul(gate, (int64_t)g->var + (g->spread > 0 ? g->spread : 0) + (lam > 0 ? lam : 0), 16u);
+    a = pfx_mixture_mul(gate, (int64_t)g->var_bound + (lam > 0 ? lam : 0), 16u);
     num = r2 + rho2 - a;
     return num > 0 && pfx_mixture_cmp_products_inline((uint64_t)num, (uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2) > 0;
 }

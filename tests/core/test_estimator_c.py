@@ -149,7 +149,7 @@ def ring_c(centre, radius: float, var: float, logw: float = 0.0, ncov=None):
         n = quantised(Mixture.single(np.zeros(2), ncov))
         c = to_c(n)
         g.nxx, g.nxy, g.nyy = c[0].pxx, c[0].pxy, c[0].pyy
-        g.spread = lib.pfx_mixture_max_eig(c)
+    g.var_bound = g.var + (lib.pfx_mixture_max_eig(c) if ncov is not None else 0)
     return g, np.array([g.cx, g.cy]) / 1024, g.radius / 1024, g.var / 2**20
 
 
@@ -482,8 +482,9 @@ def test_rings_match_twin_plain_and_robust():
                 assert (g.cx / 1024, g.cy / 1024) == tuple(want.centre[q])
                 assert g.radius / 1024 == pytest.approx(want.radius[q], abs=1e-12)
                 assert abs(g.var - want.var[q] * 2**20) <= 1.5  # sigma^2 exact + lambda_max within 1 LSB
-                assert abs(g.spread - want.spread[q] * 2**20) <= 1.5  # lambda_max within 1 LSB (0 unless directional)
-                np.testing.assert_array_equal(ring_ncov(g), want.ncov[q])  # the component's covariance, exactly
+                assert abs(g.var_bound - want.var_bound[q] * 2**20) <= 1.5  # sigma^2 exact + lambda_max within 1 LSB
+                want_ncov = np.zeros((2, 2)) if want.ncov is None else want.ncov[q]
+                np.testing.assert_array_equal(ring_ncov(g), want_ncov)  # the component's covariance, exactly (or 0)
 
 
 def test_stride_matches_twin():

@@ -488,10 +488,12 @@ def test_directional_rings_keep_the_neighbour_covariance_and_the_bound():
     rings = ring_messages(m, 10.0, 0.1, params, 0.2, 1.0)
     np.testing.assert_allclose(rings.var, [0.01, 0.01, 0.01 + 1.0, 0.01 + 1.0])  # the range's own variance
     np.testing.assert_array_equal(rings.ncov, np.concatenate([m.cov, m.cov]))
-    np.testing.assert_allclose(rings.spread, np.tile(max_eig2(m.cov), 2))
     plain = ring_messages(m, 10.0, 0.1, PARAMS, 0.2, 1.0)
-    # the bound of the variance in any direction is the bound rule's ring variance
-    np.testing.assert_allclose(rings.var + rings.spread, plain.var)
+    assert plain.ncov is None
+    # the bound of the variance in any direction, var + lambda_max(P), is the bound rule's ring variance
+    np.testing.assert_allclose(rings.var_bound, rings.var + np.tile(max_eig2(m.cov), 2))
+    np.testing.assert_allclose(rings.var_bound, plain.var)
+    np.testing.assert_array_equal(plain.var_bound, plain.var)
     # an arc of a directional ring is the bound-free arc convolved with the neighbour's position
     arcs = first_ring(rings, (-50.0, -50.0, 50.0, 50.0), params)
     bare = first_ring(Rings(rings.logw, rings.centre, rings.radius, rings.var), (-50.0, -50.0, 50.0, 50.0), params)

@@ -45,6 +45,7 @@ import numpy as np
 
 from peerfix.core._pfx import ffi, lib
 from peerfix.core.engine_fixed import FixedEngine, area_q
+from peerfix.reference.params import ROBUST_ITERATIONS
 
 # Entry points of a tag's firmware loop, in report order.
 ENTRY_POINTS = (
@@ -179,11 +180,9 @@ RUNS: tuple[Run, ...] = (
 # `peerfix budget --robust`: what the robust preset costs on the tag, on the
 # networks it is measured on (open field, 20 % of ranges blocked) and on the
 # cold store (racks block most paths), at the iterations it is measured with.
-ROBUST_RUN_ITERATIONS = 20  # = peerfix.reference.params.ROBUST_ITERATIONS (checked by a test)
 ROBUST_RUNS: tuple[Run, ...] = (
-    *(Run("open-field", s, 4, iterations=ROBUST_RUN_ITERATIONS, robust=True, blocked_probability=0.2)
-      for s in (0, 1)),
-    Run("cold-store", 0, 4, epochs=2, iterations=ROBUST_RUN_ITERATIONS, robust=True),
+    *(Run("open-field", s, 4, iterations=ROBUST_ITERATIONS, robust=True, blocked_probability=0.2) for s in (0, 1)),
+    Run("cold-store", 0, 4, epochs=2, iterations=ROBUST_ITERATIONS, robust=True),
 )
 
 

@@ -58,14 +58,12 @@ class Rings:
     centre: np.ndarray  # (m, 2)
     radius: np.ndarray  # (m,)
     var: np.ndarray  # (m,) radial variance: sigma_r^2 (+ bias^2), + lambda_max(P) unless directional
-    ncov: np.ndarray | None = None  # (m, 2, 2) the neighbour's covariance P when directional, else zeros
-    spread: np.ndarray | None = None  # (m,) lambda_max(ncov): var + spread bounds the variance in any direction
+    ncov: np.ndarray | None = None  # (m, 2, 2) the neighbour's covariance P when directional, else None
+    var_bound: np.ndarray | None = None  # (m,) var + lambda_max(ncov): the variance bound in any direction
 
     def __post_init__(self) -> None:
-        if self.ncov is None:
-            self.ncov = np.zeros((len(self.logw), 2, 2))
-        if self.spread is None:
-            self.spread = max_eig2(self.ncov)
+        if self.var_bound is None:
+            self.var_bound = self.var if self.ncov is None else self.var + max_eig2(self.ncov)
 
     def __len__(self) -> int:
         return int(self.logw.shape[0])
@@ -80,19 +78,17 @@ def ring_messages(
     blocked_bias_m: float = 0.0,
 ) -> Rings:
     """Rings for the received (already inflated) belief of one neighbour."""
-    spread = max_eig2(neighbour.cov)
+    var_bound = sigma_m * sigma_m + max_eig2(neighbour.cov)
     if params.directional_spread:
         var = np.full(len(neighbour), sigma_m * sigma_m)
         ncov = neighbour.cov.copy()
     else:
-        var = sigma_m * sigma_m + spread
-        ncov = np.zeros_like(neighbour.cov)
-        spread = np.zeros_like(spread)
+        var, ncov = var_bound, None
     logw = neighbour.logw
     centre = neighbour.mean
     radius = np.full(len(neighbour), float(range_m))
     if blocked_weight <= 0.0:
-        return Rings(logw.copy(), centre.copy(), radius, var, ncov, spread)
+        return Rings(logw.copy(), centre.copy(), radius, var, ncov, var_bound)
     # Blocked path: r = d + b with b ~ Exp(mean beta): a ring at r - beta with
     # variance s^2 + beta^2 (moment match), carrying the blocked share.
     los = np.log1p(-blocked_weight)
@@ -102,8 +98,8 @@ def ring_messages(
         np.concatenate([centre, centre]),
         np.concatenate([radius, np.maximum(radius - blocked_bias_m, 0.0)]),
         np.concatenate([var, var + blocked_bias_m**2]),
-        np.concatenate([ncov, ncov]),
-        np.concatenate([spread, spread]),
+        None if ncov is None else np.concatenate([ncov, ncov]),
+        np.concatenate([var_bound, var_bound + blocked_bias_m**2]),
     )
 
 
@@ -123,7 +119,7 @@ def arc_gaussians(centre, radius: float, var: float, dirs: np.ndarray, stride: i
                   ncov=None):
     """Arcs of one ring at table directions `dirs`: means (a,2), covs (a,2,2), log arc length.
 
-    ncov (2,2), the neighbour's covariance of a directional ring (else zeros),
+    ncov (2,2), the neighbour's covariance of a directional ring (else None),
     is added to every arc: the arc convolved with the neighbour's position."""
     spacing = 2.0 * np.pi * radius * stride / RING_DIRECTIONS
     u = DIRECTIONS[dirs]
@@ -156,7 +152,7 @@ def first_ring(rings: Rings, bounds_m, params: EstimatorParams) -> Mixture:
         stride = stride_for(rings.radius[k], params.ring_arc_spacing_m, per_ring)
         dirs = np.arange(0, RING_DIRECTIONS, stride)
         mean, cov, log_len = arc_gaussians(rings.centre[k], rings.radius[k], rings.var[k], dirs, stride, params,
-                                           rings.ncov[k])
+                                           None if rings.ncov is None else rings.ncov[k])
         inside = (mean[:, 0] >= xmin) & (mean[:, 0] <= xmax) & (mean[:, 1] >= ymin) & (mean[:, 1] <= ymax)
         n_in = int(inside.sum())
         if n_in == 0:
@@ -291,15 +287,16 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     ri = np.tile(np.arange(nr), nb)
     if params.product_gate_sigma2 > 0.0:
         # Pairs whose ring passes far from the component are not formed (ring_gate).
-        keep = ring_gate(belief.mean[bi], belief.cov[bi], rings.centre[ri], rings.radius[ri],
-                         rings.var[ri] + rings.spread[ri], params.product_gate_sigma2)
+        keep = ring_gate(belief.mean[bi], belief.cov[bi], rings.centre[ri], rings.radius[ri], rings.var_bound[ri],
+                         params.product_gate_sigma2)
         bi, ri = bi[keep], ri[keep]
     if bi.size == 0:
         return Mixture.empty()
     mean, cov = belief.mean[bi], belief.cov[bi]
-    centre, radius, var, ncov = rings.centre[ri], rings.radius[ri], rings.var[ri], rings.ncov[ri]
+    centre, radius, var = rings.centre[ri], rings.radius[ri], rings.var[ri]
+    ncov = None if rings.ncov is None else rings.ncov[ri]
     base = belief.logw[bi] + rings.logw[ri]
-    broad = is_broad(mean, cov, centre, radius, var + rings.spread[ri], params)
+    broad = is_broad(mean, cov, centre, radius, rings.var_bound[ri], params)
 
     npairs = bi.size
     out_logw = np.empty(npairs)
@@ -309,7 +306,7 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     if compact.size:
         x, p, ll = compact_update(mean[compact], cov[compact], centre[compact], radius[compact], var[compact],
                                   params.iekf_iterations, params.product_gate_sigma2, IEKF_STEP_TOL_M,
-                                  ncov[compact] if params.directional_spread else None)
+                                  None if ncov is None else ncov[compact])
         out_logw[compact] = base[compact] + ll
         out_mean[compact] = x
         out_cov[compact] = p
@@ -322,7 +319,8 @@ def multiply_by_rings(belief: Mixture, rings: Rings, params: EstimatorParams) ->
     for k in np.flatnonzero(broad):
         if k > start:
             pieces.append(Mixture(out_logw[start:k], out_mean[start:k], out_cov[start:k]))
-        arcs = broad_update(mean[k], cov[k], centre[k], float(radius[k]), float(var[k]), params, ncov[k])
+        arcs = broad_update(mean[k], cov[k], centre[k], float(radius[k]), float(var[k]), params,
+                            None if ncov is None else ncov[k])
         arcs.logw = arcs.logw + base[k]
         pieces.append(arcs)
         start = k + 1
