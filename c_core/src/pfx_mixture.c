@@ -827,13 +827,6 @@ int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, 
     sa32 = (uint32_t)a->pxx + (uint32_t)b->pxx;
     sb32 = (uint32_t)a->pxy + (uint32_t)b->pxy;
     sc32 = (uint32_t)a->pyy + (uint32_t)b->pyy;
-    msb = (sb < 0) ? 0u - sb32 : sb32;
-    ac = (uint64_t)sa32 * sc32;
-    bb = (uint64_t)msb * msb;
-    if (ac <= bb) {
-        return 0; /* singular: the reference's inverse is inf/NaN, never within */
-    }
-    det = ac - bb;
     dx = pfx_mixture_offset(a->x, b->x);
     dy = pfx_mixture_offset(a->y, b->y);
     mdx = offset_mag32(a->x, b->x, dx);
@@ -841,10 +834,19 @@ int pfx_mixture_within_gate(const pfx_component_t *a, const pfx_component_t *b, 
     dx2 = (uint64_t)mdx * mdx;
     dy2 = (uint64_t)mdy * mdy;
     dd = dx2 + dy2; /* <= 2^61 */
+    /* The quick test before the determinant: most pairs a gate merge meets
+     * are far apart, and both tests answer "not within" alike. */
     lim = (((uint64_t)(uint32_t)gate * sa32 + (uint64_t)(uint32_t)gate * sc32) >> 16) + 1u; /* each < 2^63 */
     if (dd > lim) {
         return 0;
     }
+    msb = (sb < 0) ? 0u - sb32 : sb32;
+    ac = (uint64_t)sa32 * sc32;
+    bb = (uint64_t)msb * msb;
+    if (ac <= bb) {
+        return 0; /* singular: the reference's inverse is inf/NaN, never within */
+    }
+    det = ac - bb;
     lhs = u128_add(u128_mul_u32(sc32, dx2), u128_mul_u32(sa32, dy2));
     dxy = (uint64_t)mdx * mdy; /* <= 2^60 */
     cross = (sb < -(int64_t)UINT32_MAX) ? u128_mul(2u * mag64(sb), dxy) : u128_mul_u32(msb, 2u * dxy);
@@ -911,7 +913,12 @@ pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q
     if (nseeds == *n) {
         return PFX_OK;
     }
+    /* Linear weights once per component, not once per pass of moments_core
+     * over each group: the same values (moments_core's own formula). */
     lmax = max_log2w(c, *n);
+    for (k = 0u; k < *n; ++k) {
+        s->weight[k] = pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
+    }
     /* Groups in the index order of their seeds (the reference's sorted(seeds)),
      * members in index order. */
     for (k = 0u; k < *n; ++k) {
@@ -929,7 +936,7 @@ pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q
             s->tmp[nout++] = c[k]; /* a lone seed stays as it is */
             continue;
         }
-        if (moments_core(c, s->members, m, NULL, lmax, &s->tmp[nout], &wsum) != PFX_OK) {
+        if (moments_core(c, s->members, m, s->weight, lmax, &s->tmp[nout], &wsum) != PFX_OK) {
             continue; /* only a saturated, degenerate merge: drop the group */
         }
         s->tmp[nout].log2w = log2_of_q40(wsum, lmax);
