@@ -124,6 +124,39 @@ def test_figures_hang_together(quick):
     assert doc["workspace_bytes"] == ffi.sizeof("pfx_workspace_t")
 
 
+def test_tag_image_links_only_the_tag_api(quick):
+    """The tag image is the link of TAG_API alone: smaller than the whole core, every root in it,
+    and the single-step functions only tests call (products, moments) absent."""
+    from peerfix.budget.build import ROOT, TAG_API, TAG_IMAGE_DIR, TargetConfig, build, sizes
+
+    _, doc, _ = quick
+    tag = build(TargetConfig("cortex-m4", "O2"), out_root=ROOT / "build" / TAG_IMAGE_DIR, roots=list(TAG_API))
+    size = sizes(tag.elf)
+    assert doc["flash_bytes_tag_image"] == size.flash
+    assert 0 < doc["flash_bytes_tag_image"] < doc["flash_bytes"]
+    assert doc["tag_image"]["roots"] == list(TAG_API)
+    linked = {f.split(".")[0] for f in size.functions}
+    assert set(TAG_API) <= linked
+    absent = set(doc["tag_image"]["absent_functions"])
+    assert {"pfx_range_compact", "pfx_mixture_moments", "pfx_mixture_product"} <= absent
+    assert not absent & set(TAG_API)
+
+
+def test_tag_api_is_what_the_fixed_engine_calls():
+    """TAG_API is the host's firmware loop: exactly the core functions the fixed engine calls, and
+    every entry point the budget replays is among them."""
+    import re
+    from pathlib import Path
+
+    import peerfix.core.engine_fixed as engine
+    from peerfix.budget.build import TAG_API
+    from peerfix.budget.capture import ENTRY_POINTS
+
+    called = set(re.findall(r"\blib\.(pfx_\w+)\s*\(", Path(engine.__file__).read_text()))
+    assert called == set(TAG_API)
+    assert set(ENTRY_POINTS) <= set(TAG_API)
+
+
 def test_message_bytes_per_k(quick):
     """13 + 8 K bytes: the frame layout of docs/wire-format.md (11 header + 8 per component + 2 check)."""
     _, doc, _ = quick

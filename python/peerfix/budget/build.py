@@ -163,6 +163,31 @@ def public_functions(root: Path = ROOT) -> list[str]:
     return sorted(set(names))
 
 
+# The functions a tag's firmware calls: settings, node set-up, the inbox,
+# the update, broadcast, prediction and estimate, anchors' point beliefs and
+# the radio frames.  These are the calls the fixed engine (the firmware loop
+# on the host) makes; tests/budget/test_report.py holds the two lists
+# together.  A link with only these as roots is what a tag image carries of
+# the core; the rest of the public API (single-step products, moments,
+# fixed-point helpers called on their own) serves tests and tools.
+TAG_API = (
+    "pfx_belief_point",
+    "pfx_inbox_add",
+    "pfx_inbox_clear",
+    "pfx_node_broadcast",
+    "pfx_node_estimate",
+    "pfx_node_init",
+    "pfx_node_predict",
+    "pfx_node_update",
+    "pfx_params_check",
+    "pfx_params_default",
+    "pfx_wire_decode",
+    "pfx_wire_encode",
+    "pfx_wire_quantise",
+)
+TAG_IMAGE_DIR = "target-tag"  # build/<this>/<config>/: the tag image's link
+
+
 def _run(cmd: list[str], cwd: Path | None = None) -> str:
     if shutil.which(cmd[0]) is None:
         raise ToolchainMissing(f"{cmd[0]} not found on PATH; {INSTALL_HINT}")

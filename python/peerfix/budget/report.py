@@ -24,7 +24,7 @@ from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 
-from peerfix.budget.build import ROOT, BuildResult, TargetConfig, build, read_layout, sizes
+from peerfix.budget.build import ROOT, TAG_API, TAG_IMAGE_DIR, BuildResult, TargetConfig, build, read_layout, sizes
 from peerfix.budget.capture import (
     ENTRY_POINTS,
     HEADLINE_BUCKET,
@@ -120,6 +120,8 @@ def budget_report(
     replayed = replay_all(str(result.elf), result.key, config.cpu, tuple(call_list))
 
     size = sizes(result.elf)
+    tag = build(config, out_root=ROOT / "build" / TAG_IMAGE_DIR, roots=list(TAG_API))
+    tag_size = sizes(tag.elf)
     layout = read_layout(result.elf)
     stack = analyse(result.elf, result.su_files, result.ci_files, result.public_functions)
     messages = _message_bytes(result)
@@ -166,6 +168,15 @@ def budget_report(
         "update_cycles_max_any": max((r.cycles for r in updates), default=None),
         "flash_bytes": size.flash,
         "flash_sections": {"text": size.text, "rodata": size.rodata, "exidx": size.exidx, "data": size.data},
+        "flash_bytes_tag_image": tag_size.flash,
+        "tag_image": {
+            "roots": list(TAG_API),
+            "sections": {"text": tag_size.text, "rodata": tag_size.rodata, "exidx": tag_size.exidx,
+                         "data": tag_size.data},
+            # public functions without code of their own in the tag image: unused by a tag, or inlined
+            # into their callers (gcc's clones, name.part.0, count as the function)
+            "absent_functions": sorted(set(result.public_functions) - {f.split(".")[0] for f in tag_size.functions}),
+        },
         "ram_static_bytes": size.ram_static,
         "node_state_bytes": layout["sizeof pfx_node_t"],
         "inbox_bytes": layout["sizeof pfx_inbox_t"],
@@ -307,6 +318,10 @@ def render_markdown(doc: dict) -> str:
         ["flash (text + rodata + exidx + data)",
          f"{_n(doc['flash_bytes'])} B (text {_n(doc['flash_sections']['text'])}, "
          f"rodata {_n(doc['flash_sections']['rodata'])})"],
+        [f"flash of a tag image (links only the {len(doc['tag_image']['roots'])} functions a tag calls)",
+         f"{_n(doc['flash_bytes_tag_image'])} B (text {_n(doc['tag_image']['sections']['text'])}, "
+         f"rodata {_n(doc['tag_image']['sections']['rodata'])}); "
+         f"{len(doc['tag_image']['absent_functions'])} public functions without code of their own"],
         ["static RAM (data + bss)", f"{_n(doc['ram_static_bytes'])} B"],
         ["node state (sizeof pfx_node_t, per tag)", f"{_n(doc['node_state_bytes'])} B"],
         ["inbox / workspace (caller-owned RAM)", f"{_n(doc['inbox_bytes'])} / {_n(doc['workspace_bytes'])} B"],
