@@ -7,17 +7,23 @@ function (the emulator's per-block accounting; cycles are the same
 TRM-table ESTIMATE as `peerfix budget`).  A working tool for speed work,
 not a release figure.
 
-    python tools/profile_update.py [--target cortex-m4] [--opt O2] [--quick] [--top 25]
+--steps also prints, for the slowest calls, the cycles of the update cut
+after 1, 2, ... broadcasts in update order (the inbox sorted as the core
+sorts it, then truncated): what each neighbour step adds.
+
+    python tools/profile_update.py [--target cortex-m4] [--opt O2] [--quick] [--top 25] [--steps 3]
 """
 
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
 from peerfix.budget.capture import HEADLINE_BUCKET, capture
 from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
+from peerfix.core._pfx import ffi, lib
 
 
 def _table(title: str, per_function: dict[str, tuple[int, int]], top: int) -> None:
@@ -27,12 +33,48 @@ def _table(title: str, per_function: dict[str, tuple[int, int]], top: int) -> No
         print(f"  {name:40s} {cyc:>11,} cycles {100 * cyc / total:5.1f} %  {ins:>10,} instructions")
 
 
+def _update_key(heard) -> int:
+    """pfx_node.c heard_key: anchors first, then agents by lambda_max of the heaviest component."""
+    if heard.is_anchor:
+        return -1
+    b = heard.belief
+    if b.count == 0:
+        return 2**31 - 1
+    best = max(range(b.count), key=lambda k: (b.comp[k].log2w, -k))  # the first among equals
+    return lib.pfx_mixture_max_eig(ffi.addressof(b.comp[best]))
+
+
+def _prefix(call, n: int):
+    """The call with its inbox in update order (a stable sort, as the core's) cut to n broadcasts."""
+    data = bytearray(call.args[1].data)
+    inbox = ffi.from_buffer("pfx_inbox_t *", data)
+    heard = [bytes(ffi.buffer(ffi.addressof(inbox.heard[i]), ffi.sizeof("pfx_heard_t"))) for i in range(inbox.count)]
+    order = sorted(range(inbox.count), key=lambda i: _update_key(inbox.heard[i]))
+    for j, i in enumerate(order):
+        ffi.memmove(ffi.addressof(inbox.heard[j]), heard[i], len(heard[i]))
+    inbox.count = n
+    args = (call.args[0], dataclasses.replace(call.args[1], data=bytes(data))) + call.args[2:]
+    return dataclasses.replace(call, args=args)
+
+
+def _steps(result, target: str, rows, count: int) -> None:
+    print("\nthrough n broadcasts (update order): cumulative cycles; + what broadcast n adds (n >= 3: the final"
+          "\nreduction is then of a working mixture already at the cap; n = 1 includes reducing the first ring)")
+    for row in sorted(rows, key=lambda r: -r.cycles)[:count]:
+        n_heard = ffi.from_buffer("pfx_inbox_t *", bytearray(row.call.args[1].data)).count
+        cut = tuple(_prefix(row.call, n) for n in range(1, n_heard + 1))
+        cum = [r.cycles for r in replay_all(str(result.elf), result.key, target, cut)]
+        steps = "  ".join(f"{n + 1}:{c:,}" if n < 2 else f"{c - cum[n - 1]:+,}" for n, c in enumerate(cum))
+        print(f"  call of {row.cycles:,} cycles ({row.call.source}): {steps}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--target", default="cortex-m4", choices=("cortex-m4", "cortex-m0plus"))
     ap.add_argument("--opt", default="O2", choices=("O2", "Os"))
     ap.add_argument("--quick", action="store_true", help="the quick capture (20 headline calls)")
     ap.add_argument("--top", type=int, default=25)
+    ap.add_argument("--steps", type=int, default=0, metavar="N", help="per-step cycles of the N slowest calls")
     args = ap.parse_args()
 
     result = build(TargetConfig(args.target, args.opt))
@@ -53,6 +95,8 @@ def main() -> None:
             acc[0] += ins
             acc[1] += cyc
     _table("all headline calls", {k: (v[0], v[1]) for k, v in total.items()}, args.top)
+    if args.steps:
+        _steps(result, args.target, rows, args.steps)
 
 
 if __name__ == "__main__":
