@@ -142,6 +142,18 @@ def test_tag_image_links_only_the_tag_api(quick):
     assert not absent & set(TAG_API)
 
 
+def test_flash_per_function_adds_up(quick):
+    """Every function symbol's code bytes (from the ELF's symbol table) fit in .text, largest first,
+    and the markdown lists the largest."""
+    _, doc, out_dir = quick
+    funcs = doc["flash_functions"]
+    assert "compact_core" in funcs and "pfx_node_update" in funcs
+    assert 0.9 * doc["flash_sections"]["text"] <= sum(funcs.values()) <= doc["flash_sections"]["text"]
+    assert list(funcs.values()) == sorted(funcs.values(), reverse=True)
+    largest = next(iter(funcs))
+    assert f"| {largest} | {funcs[largest]:,} |" in (out_dir / "budget.md").read_text()
+
+
 def test_tag_api_is_what_the_fixed_engine_calls():
     """TAG_API is the host's firmware loop: exactly the core functions the fixed engine calls, and
     every entry point the budget replays is among them."""

@@ -51,6 +51,7 @@ QUICK_CALLS, QUICK_HEADLINE = 100, 20
 LEFT_OUT = ("flash wait states and flash accelerators", "caches", "bus contention (DMA, other masters)",
             "interrupts and their latency")
 MAX_LISTED_MISMATCHES = 50
+LARGEST_FUNCTIONS = 15  # rows of the report's flash table (the JSON has every function)
 
 
 # ---- measurement -------------------------------------------------------------------
@@ -168,6 +169,7 @@ def budget_report(
         "update_cycles_max_any": max((r.cycles for r in updates), default=None),
         "flash_bytes": size.flash,
         "flash_sections": {"text": size.text, "rodata": size.rodata, "exidx": size.exidx, "data": size.data},
+        "flash_functions": dict(sorted(size.functions.items(), key=lambda kv: (-kv[1], kv[0]))),
         "flash_bytes_tag_image": tag_size.flash,
         "tag_image": {
             "roots": list(TAG_API),
@@ -303,7 +305,9 @@ def render_markdown(doc: dict) -> str:
         "",
         f"Calls: {doc['captured_calls']:,} captured from scenario runs ({doc['calls_per_entry_min']:,} or more "
         f"per entry point{', quick sample' if doc['quick'] else ''}), each replayed on the emulated target "
-        f"and compared byte for byte with the host.",
+        f"and compared byte for byte with the host. Maxima are over these calls: measured worst cases, "
+        f"not an execution-time bound for every input (a call's work is bounded by the core's "
+        f"compile-time caps on candidates, rings, neighbours and iterations).",
         "",
         "## Summary",
         "",
@@ -363,6 +367,12 @@ def render_markdown(doc: dict) -> str:
                 for c in e["configs"]]
         lines += _table(keys + ["calls", "instr median", "instr max", "cycles median", "cycles max",
                                 "time median (us)", "time max (us)"], rows)
+
+    funcs = list(doc["flash_functions"].items())
+    shown = funcs[:LARGEST_FUNCTIONS]
+    lines += ["", f"## Largest functions (code bytes; {len(shown)} of {len(funcs)}, "
+                  f"{_n(sum(b for _, b in shown))} of {_n(sum(b for _, b in funcs))} B)", ""]
+    lines += _table(["function", "bytes"], [[name, _n(nbytes)] for name, nbytes in shown])
 
     msg = doc["message_bytes"]
     lines += ["", "## Message bytes per K (pfx_wire_size on the target)", ""]
