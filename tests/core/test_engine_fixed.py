@@ -38,6 +38,24 @@ def test_compare_reports_both_engines(tmp_path, capsys):
     assert (tmp_path / "cmp" / "compare.csv").read_text().startswith("t_s,node_id,iteration,position_diff_m")
 
 
+def test_compare_on_moving_tags_counts_the_present_agents_only():
+    """A moving scenario (a late joiner, an early leaver): compare lines truth up with the scored
+    agents and leaves out, per epoch, the tags that are not present (their reports are stale)."""
+    from peerfix.harness.compare import compare_scenario
+    from peerfix.simulate import simulate
+
+    scenario = simulate("cold-store-shift", seed=3, duration_s=4)
+    cmp = compare_scenario(scenario, iterations=2)
+    present = [e.present for e in cmp.float_run.epochs]
+    assert any(p is not None and not p.all() for p in present)  # the late joiner is away at first
+    expected = sum(2 * int(p.sum()) for p in present)
+    assert len(cmp.rows) == expected
+    away = {(e.t_s, a) for e in cmp.float_run.epochs for a, here in zip(scenario.agent_ids, e.present) if not here}
+    assert not any((r["t_s"], r["node_id"]) in away for r in cmp.rows)
+    assert all(np.isfinite(r["error_float_m"]) and np.isfinite(r["error_fixed_m"]) for r in cmp.rows)
+    assert cmp.summary["n"] == expected // 2  # the final iteration of every epoch
+
+
 def test_a_bad_range_is_a_clear_error():
     eng = FixedEngine(EstimatorParams())
     eng.start((0, 0, 10, 10), {"a": np.array([0.0, 0.0])}, ["t"])

@@ -52,11 +52,24 @@ def _weight_diff(a, b) -> float:
     return float(np.max(np.abs(np.sort(a.weights()) - np.sort(b.weights()))))
 
 
+def _truth_by_agent(metrics: dict | None, n_agents: int) -> np.ndarray | None:
+    """The epoch's true positions lined up with the agents (NaN where an agent was not scored:
+    absent from the epoch or without truth), or None without truth."""
+    if not metrics:
+        return None
+    truth = np.full((n_agents, 2), np.nan)
+    truth[metrics["scored"]] = metrics["truth_xy_m"]
+    return truth
+
+
 def compare_runs(float_run: RunResult, fixed_run: RunResult) -> Comparison:
+    """Per agent and iteration, over the agents present in each epoch (a moving scenario's tags
+    that have not joined yet or have left keep a stale report in both engines: not compared)."""
     scenario = float_run.scenario
     rows: list[dict] = []
     for e_float, e_fixed, m in zip(float_run.epochs, fixed_run.epochs, float_run.metrics):
-        truth = m.get("truth_xy_m") if m else None
+        truth = _truth_by_agent(m, len(scenario.agent_ids))
+        present = np.ones(len(scenario.agent_ids), bool) if e_float.present is None else e_float.present
         for it_f, it_x in zip(e_float.iterations, e_fixed.iterations):
             diff = np.linalg.norm(it_f.mean - it_x.mean, axis=1)
             det_f = np.linalg.det(it_f.cov)
@@ -67,6 +80,8 @@ def compare_runs(float_run: RunResult, fixed_run: RunResult) -> Comparison:
             err_f = np.linalg.norm(it_f.mean - truth, axis=1) if truth is not None else np.full(len(diff), np.nan)
             err_x = np.linalg.norm(it_x.mean - truth, axis=1) if truth is not None else np.full(len(diff), np.nan)
             for i, a in enumerate(scenario.agent_ids):
+                if not present[i]:
+                    continue
                 wf = it_f.beliefs[i] if it_f.beliefs is not None else None
                 wx = it_x.beliefs[i] if it_x.beliefs is not None else None
                 rows.append(
@@ -103,8 +118,11 @@ def summarise(rows: list[dict], final_only: bool = True) -> dict:
     same_count = np.array([r["components_float"] == r["components_fixed"] for r in rows])
     same_modes = np.array([r["modes_float"] == r["modes_fixed"] for r in rows])
     mwd = np.array([r["mode_weight_diff"] for r in rows])
+    # Accuracy against truth over the rows that have it (a log may lack truth for some tags).
+    scored = np.isfinite(ef) & np.isfinite(ex)
+    ef, ex = ef[scored], ex[scored]
     ok_f, ok_x = ef <= 1.0, ex <= 1.0
-    has_truth = bool(np.isfinite(ef).any())
+    has_truth = bool(scored.any())
     out = {
         "n": len(rows),
         "position_diff_median_m": float(np.median(d)) if d.size else float("nan"),
