@@ -170,6 +170,42 @@ def test_a_moved_float_reference_fails_tolerance_but_not_exactness(copy, capsys,
     assert "| position_diff_p99 | ≤ 0.05 (`POSITION_P99_M`) |" in report and "| **NO** |" in report
 
 
+def _record_outside(baseline, key, factor):
+    """The manifest as if the baseline had been recorded with the tolerance check's current figures
+    times `factor` (1: as now; < 1: better then than now), already outside tolerance."""
+    from peerfix.baseline import check_baseline
+
+    result = check_baseline([baseline.parent / key], baseline)
+    summary = dict(result.scenarios[0].tolerance.summary)
+    summary["position_diff_p99_m"] *= factor
+    manifest = json.loads((baseline / "manifest.json").read_text())
+    entry = next(s for s in manifest["scenarios"] if s["key"] == key)
+    entry["tolerance_at_record"] = {k: v for k, v in summary.items() if isinstance(v, (int, float, dict))}
+    (baseline / "manifest.json").write_text(json.dumps(manifest, indent=2))
+
+
+def test_a_tolerance_outside_since_record_and_no_worse_is_not_a_regression(copy, capsys, tmp_path):
+    """A release check asks what got worse: a baseline recorded already outside a tolerance passes
+    while that figure is no worse, and the report still shows it outside."""
+    a, _, baseline = copy
+    shutil.copytree(a, baseline.parent / "field-a")
+    rewrite_csv_cell(baseline / "field-a" / "float.csv", {"t_s": "0.0", "node_id": "tag-003", "iteration": ITERATIONS}, "x_m", lambda v: repr(float(v) + 1.0))
+    reseal(baseline, "field-a", "float")
+    _record_outside(baseline, "field-a", 1.0)
+    status, out, _ = check([baseline.parent / "field-a", "--against", baseline, "--report-out", tmp_path / "rep"], capsys)
+    assert status == 0, out
+    assert "field-a fixed_within_tolerance: pass" in out
+    report = (tmp_path / "rep" / "report.md").read_text()
+    assert "outside since record, no worse: position_diff_p99" in report
+    assert "| position_diff_p99 | ≤ 0.05 (`POSITION_P99_M`) |" in report and "no, as at record (no worse)" in report
+    # the same figure, better at record than now: worse since, a regression
+    _record_outside(baseline, "field-a", 0.5)
+    status, out, _ = check([baseline.parent / "field-a", "--against", baseline, "--junit", tmp_path / "j.xml"], capsys)
+    assert status == 1 and "field-a fixed_within_tolerance: FAIL" in out
+    failures = [f for c in junit_cases(tmp_path / "j.xml") for f in c.findall("failure")]
+    assert len(failures) == 1 and failures[0].get("message") == "outside tolerance: position_diff_p99"
+
+
 def test_a_subset_of_the_suite_is_checked_and_the_rest_reported_skipped(suite, tmp_path, capsys):
     a, _, baseline = suite
     status, out, _ = check([a, "--against", baseline, "--junit", tmp_path / "j.xml"], capsys)
@@ -249,6 +285,25 @@ def test_a_scenario_not_in_the_baseline_is_bad_input(suite, tmp_path, capsys):
     other = write_field(tmp_path / "field-c", seed=3)
     status, _, err = check([other, "--against", baseline], capsys)
     assert status == 2 and "not in the baseline" in err and "field-a, field-b" in err
+
+
+def test_tolerance_on_moving_tags_counts_the_present_agents_only(tmp_path):
+    """A moving scenario (a late joiner): the tolerance check compares, per epoch, the tags that took
+    part (the run made now tells which; the recorded CSV files hold every tag, stale reports too)."""
+    from peerfix.baseline import diff
+    from peerfix.simulate import simulate
+
+    scenario = simulate("cold-store-shift", seed=3, duration_s=4)
+    settings = RunSettings(iterations=2)
+    reference, now = run_engine(scenario, "float", settings), run_engine(scenario, "fixed", settings)
+    write_csv(reference, tmp_path / "float.csv", fixed=False)
+    recorded = read_csv(tmp_path / "float.csv", False, list(scenario.agent_ids))
+    assert recorded.present is None and now.present is not None and not now.present.all()
+    rows = diff.tolerance_rows(recorded, now, scenario)
+    assert len(rows) == 2 * int(now.present.sum())
+    away = {(float(t), a) for t, here in zip(now.t_s, now.present) for a, h in zip(scenario.agent_ids, here) if not h}
+    assert away and not any((r["t_s"], r["node_id"]) in away for r in rows)
+    assert all(np.isfinite(r["error_fixed_m"]) for r in rows)  # every present tag has its truth
 
 
 def test_core_library_hook_refuses_a_missing_file(tmp_path):

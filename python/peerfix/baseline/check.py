@@ -150,7 +150,7 @@ def run_checks(result: CheckResult, progress=None) -> CheckResult:
         t0 = time.perf_counter()
         sc.now_fixed = run_engine(sc.scenario, "fixed", result.settings)
         sc.exact = diff.exact(sc.recorded_fixed, sc.now_fixed, result.manifest["q_formats"])
-        sc.tolerance = diff.tolerance(sc.reference, sc.now_fixed, sc.scenario)
+        sc.tolerance = diff.tolerance(sc.reference, sc.now_fixed, sc.scenario, sc.entry.get("tolerance_at_record"))
         sc.seconds = time.perf_counter() - t0
     return result
 

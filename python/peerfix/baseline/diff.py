@@ -5,16 +5,19 @@
   values are Q-format multiples, so float equality is integer equality.
 - within tolerance: the fixed core now against the float64 twin recorded,
   with harness.compare's summary and verdict (harness/tolerances.py), over
-  the final iteration of every epoch, as `peerfix compare` judges.
+  the final iteration of every epoch, as `peerfix compare` judges.  A
+  release check asks what got worse: a tolerance already outside when the
+  baseline was recorded fails only if its figure is now worse than then.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..harness import tolerances as tol
 from ..harness.compare import summarise
 from ..scenario.model import Scenario
 from .estimates import Q_FORMATS, Estimates
@@ -22,6 +25,32 @@ from .estimates import Q_FORMATS, Estimates
 # Tolerances that need the component weights of each belief; a baseline stores
 # the reported estimates only, so a check cannot judge these.
 NOT_JUDGED = ("weight_diff_median",)
+
+# Tolerance name (harness.compare.verdict) -> (figure in the summary, limit, limit name, "max" or "min").
+TOLERANCE_FIGURES = {
+    "position_diff_median": (lambda s: s["position_diff_median_m"], tol.POSITION_MEDIAN_M, "POSITION_MEDIAN_M", "max"),
+    "position_diff_p99": (lambda s: s["position_diff_p99_m"], tol.POSITION_P99_M, "POSITION_P99_M", "max"),
+    "cov_log_det_ratio_median": (lambda s: s["cov_log_det_ratio_median"], tol.COV_LOG_DET_RATIO_MEDIAN, "COV_LOG_DET_RATIO_MEDIAN", "max"),
+    "weight_diff_median": (lambda s: s["weight_diff_median"], tol.WEIGHT_DIFF_MEDIAN, "WEIGHT_DIFF_MEDIAN", "max"),
+    "mode_count_agreement": (lambda s: s["mode_count_agreement"], tol.MODE_COUNT_AGREEMENT, "MODE_COUNT_AGREEMENT", "min"),
+    "mode_weight_diff_p99": (lambda s: s["mode_weight_diff_p99"], tol.MODE_WEIGHT_DIFF_P99, "MODE_WEIGHT_DIFF_P99", "max"),
+    "within_1m_share": (
+        lambda s: abs(s["fraction_within_1m_float"] - s["fraction_within_1m_fixed"]),
+        tol.WITHIN_1M_SHARE_DIFF,
+        "WITHIN_1M_SHARE_DIFF",
+        "max",
+    ),
+    "split_decisions": (lambda s: s["split_decision_share"], tol.SPLIT_DECISION_SHARE, "SPLIT_DECISION_SHARE", "max"),
+}
+
+
+def figure_of(summary: dict, name: str) -> float | None:
+    """The figure tolerance `name` judges, from a harness.compare summary (None when absent)."""
+    try:
+        v = TOLERANCE_FIGURES[name][0](summary)
+    except (KeyError, TypeError):
+        return None
+    return None if v is None else float(v)
 
 
 @dataclass
@@ -145,29 +174,55 @@ class ToleranceResult:
     summary: dict  # harness.compare.summarise over the final iteration of every epoch
     rows: list[dict]
     shape_error: str | None = None
+    at_record: dict = field(default_factory=dict)  # the manifest's tolerance_at_record (same layout as summary)
 
     @property
     def verdict(self) -> dict[str, bool]:
+        """Each judged tolerance: held now (the product's promise), whatever it was at record."""
         return {k: v for k, v in self.summary.get("verdict", {}).items() if k not in NOT_JUDGED}
 
     @property
+    def outside_since_record(self) -> list[str]:
+        """Tolerances outside now that were outside at record too, with a figure no worse than then."""
+        was = {k: v for k, v in self.at_record.get("verdict", {}).items() if k not in NOT_JUDGED}
+        out = []
+        for name, ok in self.verdict.items():
+            if ok or was.get(name, True):
+                continue
+            now, then = figure_of(self.summary, name), figure_of(self.at_record, name)
+            if now is None or then is None or not (math.isfinite(now) and math.isfinite(then)):
+                continue
+            sense = TOLERANCE_FIGURES[name][3]
+            if (now <= then) if sense == "max" else (now >= then):
+                out.append(name)
+        return out
+
+    @property
+    def regressed(self) -> list[str]:
+        """Tolerances outside now that held at record, or got worse since: what fails the check."""
+        known = set(self.outside_since_record)
+        return [k for k, ok in self.verdict.items() if not ok and k not in known]
+
+    @property
     def held(self) -> bool:
-        return self.shape_error is None and all(self.verdict.values())
+        return self.shape_error is None and not self.regressed
 
 
 def _truth(scenario: Scenario, t_s: float, agent_ids: list[str]) -> np.ndarray | None:
+    """True positions per agent at t_s (NaN for an agent without one), None without truth."""
     if scenario.truth is None:
         return None
     truth = scenario.truth.at(t_s)
-    if not all(a in truth for a in agent_ids):
-        return None
-    return np.array([truth[a] for a in agent_ids], float)
+    return np.array([truth[a] if a in truth else (np.nan, np.nan) for a in agent_ids], float)
 
 
 def tolerance_rows(reference: Estimates, fixed: Estimates, scenario: Scenario) -> list[dict]:
-    """Rows in harness.compare's layout: fixed now against the float reference, per agent and stored iteration."""
+    """Rows in harness.compare's layout: fixed now against the float reference, per agent and stored
+    iteration, over the agents present in each epoch (as harness.compare: a tag that has not joined yet
+    or has left keeps a stale report; fixed.present, from the run made now, tells which)."""
     rows = []
     for e, t_s in enumerate(reference.t_s):
+        present = np.ones(len(reference.agent_ids), bool) if fixed.present is None else fixed.present[e]
         truth = _truth(scenario, float(t_s), reference.agent_ids)
         for s, iteration in enumerate(reference.iterations):
             mf, mx = reference.mean_m[e, s], fixed.mean_m[e, s]
@@ -180,6 +235,8 @@ def tolerance_rows(reference: Estimates, fixed: Estimates, scenario: Scenario) -
             err_f = np.linalg.norm(mf - truth, axis=1) if truth is not None else nan
             err_x = np.linalg.norm(mx - truth, axis=1) if truth is not None else nan
             for n, a in enumerate(reference.agent_ids):
+                if not present[n]:
+                    continue
                 rows.append(
                     {
                         "t_s": float(t_s),
@@ -201,9 +258,10 @@ def tolerance_rows(reference: Estimates, fixed: Estimates, scenario: Scenario) -
     return rows
 
 
-def tolerance(reference: Estimates, fixed: Estimates, scenario: Scenario) -> ToleranceResult:
+def tolerance(reference: Estimates, fixed: Estimates, scenario: Scenario, at_record: dict | None = None) -> ToleranceResult:
+    """at_record: the figures and verdict recorded with the baseline (what "worse" is measured from)."""
     shape_error = _line_up(reference, fixed)
     if shape_error:
-        return ToleranceResult({}, [], shape_error)
+        return ToleranceResult({}, [], shape_error, at_record or {})
     rows = tolerance_rows(reference, fixed, scenario)
-    return ToleranceResult(summarise(rows, final_only=True), rows)
+    return ToleranceResult(summarise(rows, final_only=True), rows, at_record=at_record or {})

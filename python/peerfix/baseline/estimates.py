@@ -41,6 +41,9 @@ class Estimates:
     mode_count: np.ndarray  # (E, S, N) int
     mode_weight: np.ndarray  # (E, S, N)
     components: np.ndarray  # (E, S, N) int
+    # (E, N) bool: the agent took part in the epoch.  Known for a run, not stored in the CSV files
+    # (both engines run the same schedule, so the run made now tells it for the recorded one too).
+    present: np.ndarray | None = None
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -63,6 +66,8 @@ def from_run(result: RunResult, final_only: bool = False) -> Estimates:
         mode_count=np.array([[it.mode_count for it in iters] for iters in its], int),
         mode_weight=np.array([[it.mode_weight for it in iters] for iters in its], float),
         components=np.array([[it.components for it in iters] for iters in its], int),
+        present=np.array([np.ones(len(result.scenario.agent_ids), bool) if e.present is None else e.present
+                          for e in result.epochs], bool).reshape(len(result.epochs), len(result.scenario.agent_ids)),
     )
 
 

@@ -42,8 +42,9 @@ def _failure_text(sc: ScenarioCheck, check: str) -> tuple[str, str]:
     tol = sc.tolerance
     if tol.shape_error:
         return f"runs do not line up: {tol.shape_error}", tol.shape_error
-    failed = [k for k, ok in tol.verdict.items() if not ok]
-    return "outside tolerance: " + ", ".join(failed), "\n".join(f"{k}: {'held' if ok else 'OUTSIDE'}" for k, ok in tol.verdict.items())
+    known = set(tol.outside_since_record)
+    state = {k: "held" if ok else ("outside since record, no worse" if k in known else "OUTSIDE") for k, ok in tol.verdict.items()}
+    return "outside tolerance: " + ", ".join(tol.regressed), "\n".join(f"{k}: {v}" for k, v in state.items())
 
 
 def junit_tree(result: CheckResult) -> ET.ElementTree:

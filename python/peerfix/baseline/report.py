@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 
 from ..harness import tolerances as tol
 from .check import CHECKS, CheckResult, ScenarioCheck
-from .diff import NOT_JUDGED, Moved
+from .diff import NOT_JUDGED, TOLERANCE_FIGURES, Moved, figure_of
 
 # Pictures are drawn on a bare Figure with the Agg canvas (pyplot's global
 # state untouched).  peerfix.report.style is not imported: importing it runs
@@ -43,22 +43,6 @@ def _save(fig: Figure, path: Path) -> Path:
 MAP_LABELS = 20  # moved agents named on the map, largest first
 MOVED_ROWS = 25  # largest changes listed per scenario (all of them are in the JUnit failure text)
 
-# Tolerance name (harness.compare.verdict) -> (figure in the summary, limit, limit name, "max" or "min").
-TOLERANCE_FIGURES = {
-    "position_diff_median": (lambda s: s["position_diff_median_m"], tol.POSITION_MEDIAN_M, "POSITION_MEDIAN_M", "max"),
-    "position_diff_p99": (lambda s: s["position_diff_p99_m"], tol.POSITION_P99_M, "POSITION_P99_M", "max"),
-    "cov_log_det_ratio_median": (lambda s: s["cov_log_det_ratio_median"], tol.COV_LOG_DET_RATIO_MEDIAN, "COV_LOG_DET_RATIO_MEDIAN", "max"),
-    "weight_diff_median": (lambda s: s["weight_diff_median"], tol.WEIGHT_DIFF_MEDIAN, "WEIGHT_DIFF_MEDIAN", "max"),
-    "mode_count_agreement": (lambda s: s["mode_count_agreement"], tol.MODE_COUNT_AGREEMENT, "MODE_COUNT_AGREEMENT", "min"),
-    "mode_weight_diff_p99": (lambda s: s["mode_weight_diff_p99"], tol.MODE_WEIGHT_DIFF_P99, "MODE_WEIGHT_DIFF_P99", "max"),
-    "within_1m_share": (
-        lambda s: abs(s["fraction_within_1m_float"] - s["fraction_within_1m_fixed"]),
-        tol.WITHIN_1M_SHARE_DIFF,
-        "WITHIN_1M_SHARE_DIFF",
-        "max",
-    ),
-    "split_decisions": (lambda s: s["split_decision_share"], tol.SPLIT_DECISION_SHARE, "SPLIT_DECISION_SHARE", "max"),
-}
 
 
 def _fmt(x) -> str:
@@ -71,14 +55,6 @@ def _fmt(x) -> str:
             return "–"
         return f"{x:.6g}"
     return str(x)
-
-
-def _figure(summary: dict, name: str):
-    try:
-        v = TOLERANCE_FIGURES[name][0](summary)
-    except (KeyError, TypeError):
-        return None
-    return None if v is None else float(v)
 
 
 # --------------------------------------------------------------------------- pictures
@@ -182,8 +158,10 @@ def _summary_table(result: CheckResult) -> list[str]:
                     else f"{s['moved']} estimates of {s['agents_moved']} agents differ; largest move {s['position_diff_max_m']:.6f} m"
                 )
             else:
-                failed = [k for k, ok in sc.tolerance.verdict.items() if not ok]
-                detail = sc.tolerance.shape_error or ("all tolerances hold" if held else "outside: " + ", ".join(failed))
+                t = sc.tolerance
+                parts = ([f"outside: {', '.join(t.regressed)}"] if t.regressed else []) + (
+                    [f"outside since record, no worse: {', '.join(t.outside_since_record)}"] if t.outside_since_record else [])
+                detail = t.shape_error or ("; ".join(parts) if parts else "all tolerances hold")
             out.append(f"| {sc.key} | {check} | {'pass' if held else '**FAIL**'} | {detail} |")
     for key in result.not_checked:
         out.append(f"| {key} | – | not checked | in the baseline, not given to this check |")
@@ -256,12 +234,14 @@ def _tolerance_section(sc: ScenarioCheck, pictures: list[tuple[str, str]]) -> li
     ]
     for name in t.summary["verdict"]:
         _, limit, limit_name, sense = TOLERANCE_FIGURES.get(name, (None, None, name, ""))
-        rec, now = _figure(at_record, name), _figure(t.summary, name)
+        rec, now = figure_of(at_record, name), figure_of(t.summary, name)
         bound = f"{'≤' if sense == 'max' else '≥'} {limit:g} (`{limit_name}`)" if limit is not None else "–"
         if name in NOT_JUDGED:
             held = "not judged (needs beliefs, not stored)"
+        elif t.verdict[name]:
+            held = "yes"
         else:
-            held = "yes" if t.verdict[name] else "**NO**"
+            held = "no, as at record (no worse)" if name in t.outside_since_record else "**NO**"
         out.append(f"| {name} | {bound} | {_fmt(rec)} | {_fmt(now)} | {held} |")
     out.append("")
     for file, caption in pictures:

@@ -99,7 +99,8 @@ def handle_record(args) -> int:
         if outside:
             print(
                 f"warning: {s['key']}: the fixed core is already outside tolerance of the float twin ({', '.join(outside)}); "
-                "`baseline check` will fail fixed_within_tolerance until that changes",
+                "`baseline check` reports these as outside since record and fails fixed_within_tolerance only "
+                "when one gets worse (or another leaves its tolerance)",
                 file=sys.stderr,
             )
     stamp = manifest["core"].get("build_stamp")
