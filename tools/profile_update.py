@@ -33,25 +33,27 @@ def _table(title: str, per_function: dict[str, tuple[int, int]], top: int) -> No
         print(f"  {name:40s} {cyc:>11,} cycles {100 * cyc / total:5.1f} %  {ins:>10,} instructions")
 
 
-def _update_key(heard) -> int:
-    """pfx_node.c heard_key: anchors first, then agents by lambda_max of the heaviest component."""
-    if heard.is_anchor:
-        return -1
-    b = heard.belief
-    if b.count == 0:
-        return 2**31 - 1
-    best = max(range(b.count), key=lambda k: (b.comp[k].log2w, -k))  # the first among equals
-    return lib.pfx_mixture_max_eig(ffi.addressof(b.comp[best]))
+def _update_order(call) -> list[int]:
+    """The order the core takes the call's broadcasts in: the host build's own update run on a copy of
+    the call's inputs, read from its workspace (pfx_workspace_t.order)."""
+    node = ffi.new("pfx_node_t *")
+    ffi.memmove(node, call.args[0].data, ffi.sizeof("pfx_node_t"))
+    inbox = ffi.from_buffer("pfx_inbox_t *", bytearray(call.args[1].data))
+    ws = ffi.new("pfx_workspace_t *")
+    if lib.pfx_node_update(node, inbox, ws) != lib.PFX_OK:
+        raise RuntimeError(f"captured update from {call.source} fails on the host")
+    return list(ws.order[0:inbox.count])
 
 
-def _prefix(call, n: int):
-    """The call with its inbox in update order (a stable sort, as the core's) cut to n broadcasts."""
+def _prefix(call, order: list[int], n: int):
+    """The call with its inbox in update order cut to n broadcasts (a sorted inbox keeps its order:
+    the core's sort is stable)."""
     data = bytearray(call.args[1].data)
     inbox = ffi.from_buffer("pfx_inbox_t *", data)
-    heard = [bytes(ffi.buffer(ffi.addressof(inbox.heard[i]), ffi.sizeof("pfx_heard_t"))) for i in range(inbox.count)]
-    order = sorted(range(inbox.count), key=lambda i: _update_key(inbox.heard[i]))
+    size = ffi.sizeof("pfx_heard_t")
+    heard = [bytes(ffi.buffer(ffi.addressof(inbox.heard[i]), size)) for i in range(inbox.count)]
     for j, i in enumerate(order):
-        ffi.memmove(ffi.addressof(inbox.heard[j]), heard[i], len(heard[i]))
+        ffi.memmove(ffi.addressof(inbox.heard[j]), heard[i], size)
     inbox.count = n
     args = (call.args[0], dataclasses.replace(call.args[1], data=bytes(data))) + call.args[2:]
     return dataclasses.replace(call, args=args)
@@ -61,8 +63,8 @@ def _steps(result, target: str, rows, count: int) -> None:
     print("\nthrough n broadcasts (update order): cumulative cycles; + what broadcast n adds (n >= 3: the final"
           "\nreduction is then of a working mixture already at the cap; n = 1 includes reducing the first ring)")
     for row in sorted(rows, key=lambda r: -r.cycles)[:count]:
-        n_heard = ffi.from_buffer("pfx_inbox_t *", bytearray(row.call.args[1].data)).count
-        cut = tuple(_prefix(row.call, n) for n in range(1, n_heard + 1))
+        order = _update_order(row.call)
+        cut = tuple(_prefix(row.call, order, n) for n in range(1, len(order) + 1))
         cum = [r.cycles for r in replay_all(str(result.elf), result.key, target, cut)]
         steps = "  ".join(f"{n + 1}:{c:,}" if n < 2 else f"{c - cum[n - 1]:+,}" for n, c in enumerate(cum))
         print(f"  call of {row.cycles:,} cycles ({row.call.source}): {steps}")

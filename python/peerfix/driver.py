@@ -52,6 +52,10 @@ class EpochRecord:
     iterations: list[IterationRecord] = field(default_factory=list)
     present: np.ndarray | None = None  # (N,) bool: agent took part (None: everyone)
 
+    def took_part(self, n_agents: int) -> np.ndarray:
+        """(N,) bool: which agents took part in the epoch (all of them when present is None)."""
+        return np.ones(n_agents, bool) if self.present is None else self.present
+
 
 def run_epoch(
     engine: Engine,

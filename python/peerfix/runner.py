@@ -284,7 +284,7 @@ def score_epoch(scenario: Scenario, record: EpochRecord, cooperative: bool = Tru
         return {}
     truth = scenario.truth.at(record.t_s)
     ids = scenario.agent_ids
-    present = np.ones(len(ids), bool) if record.present is None else record.present
+    present = record.took_part(len(ids))
     scored = [i for i, a in enumerate(ids) if present[i] and a in truth]
     if not scored:
         return {}

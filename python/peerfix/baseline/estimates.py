@@ -55,6 +55,7 @@ def from_run(result: RunResult, final_only: bool = False) -> Estimates:
     per_epoch = [e.iterations[-1:] if final_only else e.iterations for e in result.epochs]
     its = [[it for it in iters] for iters in per_epoch]
     numbers = {tuple(it.iteration for it in iters) for iters in its}
+    n = len(result.scenario.agent_ids)
     if len(numbers) != 1:
         raise ValueError(f"epochs store different iterations: {sorted(numbers)}")
     return Estimates(
@@ -66,8 +67,7 @@ def from_run(result: RunResult, final_only: bool = False) -> Estimates:
         mode_count=np.array([[it.mode_count for it in iters] for iters in its], int),
         mode_weight=np.array([[it.mode_weight for it in iters] for iters in its], float),
         components=np.array([[it.components for it in iters] for iters in its], int),
-        present=np.array([np.ones(len(result.scenario.agent_ids), bool) if e.present is None else e.present
-                          for e in result.epochs], bool).reshape(len(result.epochs), len(result.scenario.agent_ids)),
+        present=np.array([e.took_part(n) for e in result.epochs], bool).reshape(len(result.epochs), n),
     )
 
 

@@ -143,6 +143,15 @@ class SizeReport:
     def ram_static(self) -> int:
         return self.data + self.bss
 
+    @property
+    def flash_sections(self) -> dict[str, int]:
+        return {"text": self.text, "rodata": self.rodata, "exidx": self.exidx, "data": self.data}
+
+    @property
+    def linked_functions(self) -> set[str]:
+        """Functions with code of their own, gcc's clones (name.part.0, name.isra.0) as the function."""
+        return {f.split(".")[0] for f in self.functions}
+
 
 def toolchain_available() -> bool:
     return shutil.which(CC) is not None

@@ -168,16 +168,14 @@ def budget_report(
         "update_time_max_us": head["time_max_us"] if head else None,
         "update_cycles_max_any": max((r.cycles for r in updates), default=None),
         "flash_bytes": size.flash,
-        "flash_sections": {"text": size.text, "rodata": size.rodata, "exidx": size.exidx, "data": size.data},
+        "flash_sections": size.flash_sections,
         "flash_functions": dict(sorted(size.functions.items(), key=lambda kv: (-kv[1], kv[0]))),
         "flash_bytes_tag_image": tag_size.flash,
         "tag_image": {
             "roots": list(TAG_API),
-            "sections": {"text": tag_size.text, "rodata": tag_size.rodata, "exidx": tag_size.exidx,
-                         "data": tag_size.data},
+            "sections": tag_size.flash_sections,
             # public functions without code of their own in the tag image: unused by a tag, or inlined
-            # into their callers (gcc's clones, name.part.0, count as the function)
-            "absent_functions": sorted(set(result.public_functions) - {f.split(".")[0] for f in tag_size.functions}),
+            "absent_functions": sorted(set(result.public_functions) - tag_size.linked_functions),
         },
         "ram_static_bytes": size.ram_static,
         "node_state_bytes": layout["sizeof pfx_node_t"],

@@ -69,7 +69,7 @@ def compare_runs(float_run: RunResult, fixed_run: RunResult) -> Comparison:
     rows: list[dict] = []
     for e_float, e_fixed, m in zip(float_run.epochs, fixed_run.epochs, float_run.metrics):
         truth = _truth_by_agent(m, len(scenario.agent_ids))
-        present = np.ones(len(scenario.agent_ids), bool) if e_float.present is None else e_float.present
+        present = e_float.took_part(len(scenario.agent_ids))
         for it_f, it_x in zip(e_float.iterations, e_fixed.iterations):
             diff = np.linalg.norm(it_f.mean - it_x.mean, axis=1)
             det_f = np.linalg.det(it_f.cov)
