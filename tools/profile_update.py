@@ -21,7 +21,7 @@ import dataclasses
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
-from peerfix.budget.capture import HEADLINE_BUCKET, capture
+from peerfix.budget.capture import capture, is_headline
 from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
 from peerfix.core._pfx import ffi, lib
 
@@ -81,7 +81,7 @@ def main() -> None:
 
     result = build(TargetConfig(args.target, args.opt))
     sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)))
-    calls = [c for c in sel.calls["pfx_node_update"] if c.bucket == HEADLINE_BUCKET]
+    calls = [c for c in sel.calls["pfx_node_update"] if is_headline(c)]
     rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))
     bad = [r for r in rows if not r.bit_exact]
     cycles = sorted(r.cycles for r in rows)

@@ -103,7 +103,7 @@ def test_every_captured_call_is_replayed_bit_exact(quick):
 def test_figures_hang_together(quick):
     _, doc, _ = quick
     clock = doc["clock_mhz"]
-    assert doc["update_calls"] >= 20  # the headline bucket gets its share first
+    assert doc["update_calls"] >= 40  # the two headline buckets get their share first
     assert doc["update_cycles_max"] >= doc["update_cycles_median"] > 0
     assert doc["update_cycles_max_any"] >= doc["update_cycles_max"]
     for name, e in doc["entries"].items():
@@ -114,9 +114,15 @@ def test_figures_hang_together(quick):
         assert 0 < e["stack_measured_bytes"] <= e["stack_static_bytes"], name
     assert doc["stack_bytes"] == max(e["stack_static_bytes"] for e in doc["entries"].values())
     update = doc["entries"]["pfx_node_update"]
-    headline = [c for c in update["configs"] if (c["neighbours"], c["K"]) == (12, 4)]
-    assert len(headline) == 1 and headline[0]["cycles_max"] == doc["update_cycles_max"]
-    assert headline[0]["calls"] == doc["update_calls"]
+    headline = {c["tracking"]: c for c in update["configs"] if (c["neighbours"], c["K"]) == (12, 4)}
+    assert set(headline) == {0, 1}  # both priors, each its own configuration row
+    for tracking, kind in ((0, "acquisition"), (1, "tracking")):
+        row = headline[tracking]
+        assert row["calls"] == doc[f"update_calls_{kind}"] >= 20, kind  # each headline bucket its share first
+        assert (row["cycles_median"], row["cycles_max"]) == (doc[f"update_cycles_median_{kind}"],
+                                                           doc[f"update_cycles_max_{kind}"]), kind
+    assert doc["update_calls"] == headline[0]["calls"] + headline[1]["calls"]
+    assert doc["update_cycles_max"] == max(headline[0]["cycles_max"], headline[1]["cycles_max"])
     # the caller-owned structs as the host's cffi lays them out (the layout test checks every field)
     from peerfix.core._pfx import ffi
 
@@ -232,18 +238,43 @@ def test_command_fails_on_a_mismatch(monkeypatch, tmp_path):
 
 def test_full_capture_covers_every_update_configuration():
     """The scenario runs give updates with 1..16 heard broadcasts at every K = 1..8,
-    1000 calls per entry point, and at least 50 in the headline bucket (12, K = 4)."""
-    from peerfix.budget.capture import ENTRY_POINTS, HEADLINE_BUCKET, capture
+    1000 calls per entry point, and every distinct headline call (12, K = 4) of
+    both priors, at least 50 of each."""
+    from peerfix.budget.capture import ENTRY_POINTS, HEADLINE_BUCKETS, capture
+    from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE
 
-    full = capture(1000, 50)
-    buckets = {c.bucket for c in full.calls["pfx_node_update"]}
+    full = capture(FULL_CALLS, FULL_HEADLINE)
+    buckets = {c.bucket[:2] for c in full.calls["pfx_node_update"]}
     assert buckets >= {(("neighbours", n), ("K", k)) for n in range(1, 17) for k in range(1, 9)}
-    assert sum(c.bucket == HEADLINE_BUCKET for c in full.calls["pfx_node_update"]) >= 50
+    for b in HEADLINE_BUCKETS:
+        taken = sum(c.bucket == b for c in full.calls["pfx_node_update"])
+        assert taken == full.available["pfx_node_update"][b] >= 50, b  # all of them: maxima over every one
     for entry in ENTRY_POINTS:
         assert len(full.calls[entry]) >= 1000, entry
     # a smaller selection is part of the larger one (quick figures never exceed the full ones' calls)
     quick_calls = set(capture(100, 20).all_calls())
     assert quick_calls <= set(full.all_calls())
+
+
+def test_headline_split_by_prior_reads_the_node_it_starts_from():
+    """The acquisition / tracking split is where the captured update starts: the
+    node's tracking prior (pfx_node_t.prior, count 0 = uniform over the bounds),
+    read here from the bytes the target is given.  Tracking calls come from the
+    second epoch of a run (a predicted belief), acquisition calls from the first."""
+    from peerfix.budget.capture import capture, from_tracking_prior, is_headline
+    from peerfix.budget.report import QUICK_CALLS, QUICK_HEADLINE
+    from peerfix.core._pfx import ffi
+
+    calls = [c for c in capture(QUICK_CALLS, QUICK_HEADLINE).calls["pfx_node_update"] if is_headline(c)]
+    kinds = {True: 0, False: 0}
+    for c in calls:
+        node = ffi.from_buffer("pfx_node_t *", bytearray(c.args[0].data))
+        tracking = from_tracking_prior(c)
+        assert tracking == (node.prior.count > 0), c.source
+        if tracking:  # a tracking prior is last epoch's belief grown by the random walk
+            assert 1 <= node.prior.count <= node.params.max_components and " 2 epochs" in c.source
+        kinds[tracking] += 1
+    assert kinds[True] >= QUICK_HEADLINE and kinds[False] >= QUICK_HEADLINE
 
 
 def _robust_calls():
