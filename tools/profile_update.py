@@ -12,6 +12,7 @@ after 1, 2, ... broadcasts in update order (the inbox sorted as the core
 sorts it, then truncated): what each neighbour step adds.
 
     python tools/profile_update.py [--target cortex-m4] [--opt O2] [--quick] [--top 25] [--steps 3]
+                                   [--prior any|acquisition|tracking]
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ import dataclasses
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
-from peerfix.budget.capture import capture, is_headline
+from peerfix.budget.capture import capture, from_tracking_prior, is_headline
 from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
 from peerfix.core._pfx import ffi, lib
 
@@ -77,15 +78,18 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true", help="the quick capture (20 headline calls)")
     ap.add_argument("--top", type=int, default=25)
     ap.add_argument("--steps", type=int, default=0, metavar="N", help="per-step cycles of the N slowest calls")
+    ap.add_argument("--prior", default="any", choices=("any", "acquisition", "tracking"),
+                    help="only the updates from the uniform prior (acquisition) or from a tracking prior")
     args = ap.parse_args()
 
     result = build(TargetConfig(args.target, args.opt))
     sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)))
-    calls = [c for c in sel.calls["pfx_node_update"] if is_headline(c)]
+    calls = [c for c in sel.calls["pfx_node_update"] if is_headline(c)
+             and (args.prior == "any" or from_tracking_prior(c) == (args.prior == "tracking"))]
     rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))
     bad = [r for r in rows if not r.bit_exact]
     cycles = sorted(r.cycles for r in rows)
-    print(f"{args.target}-{args.opt}: {len(rows)} headline updates, median {statistics.median(cycles):,.0f}, "
+    print(f"{args.target}-{args.opt}: {len(rows)} headline updates ({args.prior} prior), median {statistics.median(cycles):,.0f}, "
           f"max {cycles[-1]:,} cycles; {len(bad)} not bit-exact")
     by_cycles = sorted(rows, key=lambda r: r.cycles)
     _table("median call", by_cycles[len(by_cycles) // 2].per_function, args.top)

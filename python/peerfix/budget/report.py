@@ -177,9 +177,8 @@ def budget_report(
         "update_instructions_max": head["instructions_max"] if head else None,
         "update_time_max_us": head["time_max_us"] if head else None,
         "update_cycles_max_any": max((r.cycles for r in updates), default=None),
-        **{f"update_{fig}_{kind}": (st[src] if st else None)
-           for kind, st in prior_stats.items()
-           for fig, src in (("calls", "calls"), ("cycles_median", "cycles_median"), ("cycles_max", "cycles_max"))},
+        **{f"update_{fig}_{kind}": (st[fig] if st else None)
+           for kind, st in prior_stats.items() for fig in ("calls", "cycles_median", "cycles_max")},
         "flash_bytes": size.flash,
         "flash_sections": size.flash_sections,
         "flash_functions": dict(sorted(size.functions.items(), key=lambda kv: (-kv[1], kv[0]))),
@@ -339,7 +338,7 @@ def render_markdown(doc: dict) -> str:
          f"{_n(doc['update_cycles_median'])} / {_n(doc['update_cycles_max'])} "
          f"({_ms(doc['update_cycles_median'] / clock if doc['update_cycles_median'] else None)} / "
          f"{_ms(doc['update_time_max_us'])} ms) over {doc['update_calls']} calls"],
-        *[[f"... of these, from {what}: cycles median / max",
+        *[[f"update, {hl['neighbours']} heard, K = {hl['K']}, from {what}: cycles median / max",
            f"{_n(doc[f'update_cycles_median_{kind}'])} / {_n(doc[f'update_cycles_max_{kind}'])} "
            f"over {_n(doc[f'update_calls_{kind}'])} calls"]
           for kind, what in (("acquisition", "the uniform prior (acquisition)"),
