@@ -27,6 +27,9 @@ from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_
 from peerfix.core._pfx import ffi, lib
 
 
+PRIOR_LABEL = {"any": "either prior", "acquisition": "the uniform prior", "tracking": "a tracking prior"}
+
+
 def _table(title: str, per_function: dict[str, tuple[int, int]], top: int) -> None:
     total = sum(c for _, c in per_function.values()) or 1
     print(f"\n{title}: {total:,} cycles")
@@ -89,7 +92,7 @@ def main() -> None:
     rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))
     bad = [r for r in rows if not r.bit_exact]
     cycles = sorted(r.cycles for r in rows)
-    print(f"{args.target}-{args.opt}: {len(rows)} headline updates ({args.prior} prior), median {statistics.median(cycles):,.0f}, "
+    print(f"{args.target}-{args.opt}: {len(rows)} headline updates (from {PRIOR_LABEL[args.prior]}), median {statistics.median(cycles):,.0f}, "
           f"max {cycles[-1]:,} cycles; {len(bad)} not bit-exact")
     by_cycles = sorted(rows, key=lambda r: r.cycles)
     _table("median call", by_cycles[len(by_cycles) // 2].per_function, args.top)
