@@ -978,6 +978,19 @@ static int32_t logdet_of(const pfx_component_t *c)
     return l2;
 }
 
+/* w l / 2^8 rounded (pfx_mixture_mul(w, l, 8u)) for a Runnalls weight w
+ * (Q40 of a total 2^40: at most 2^41 for a pair) and a log2 determinant l
+ * (logdet_of: log2 of a 64-bit value >= 1, so 0 <= l < 2^22 in Q16): there
+ * w l < 2^63 is one 64-bit product and the rounding is mul64's (ties toward
+ * +infinity), without its 64 x 32 dispatch.  Anything else: mul64. */
+static int64_t weighted_logdet(int64_t w, int32_t l)
+{
+    if (w >= 0 && w <= (INT64_C(1) << 41) && l >= 0 && l < (INT32_C(1) << 22)) {
+        return pfx_mixture_shr_round(w * l, 8u);
+    }
+    return pfx_mixture_mul(w, l, 8u);
+}
+
 /* B' = (w_i + w_j) log2|P_ij| - w_i log2|P_i| - w_j log2|P_j| in Q48
  * (Q40 weights normalised to a total of 2^40, Q16 logs, each term >> 8:
  * |w log2det| <= 2^41 * 2^22 fits).  Twice Runnalls' B in bits; the
@@ -991,6 +1004,27 @@ static int32_t logdet_of(const pfx_component_t *c)
  * d d^T in Q20 (exact, <= 2^60), times a_i a_j >> 30 (one rounding, mul64
  * when it leaves 32 bits); stored through pfx_mixture_store_cov.
  */
+/*
+ * pfx_mixture_mul_recip(w, r, 30u) for a weight w in [0, 2^42) and the
+ * reciprocal of a weight sum of 2^32 or more (shift >= 63): w mant =
+ * hi 2^32 + lo (hi = (w >> 32) mant < 2^41, lo < 2^63), and with the
+ * rounding bias 2^(k-1) a multiple of 2^32 (k = shift - 30 >= 33)
+ * floor((w mant + 2^(k-1)) / 2^k) = floor((hi + floor((lo + 2^(k-1)) / 2^32)) / 2^(k-32)),
+ * which is mul64's value (ties toward +infinity) without its dispatch.
+ */
+static int64_t weight_fraction(int64_t w, const pfx_recip64_t *r)
+{
+    if (w >= 0 && w < (INT64_C(1) << 42) && r->mant >= 0 && r->shift >= 63u && r->shift <= 93u) {
+        unsigned k = r->shift - 30u;
+        uint64_t mant = (uint64_t)(uint32_t)r->mant;
+        uint64_t lo = (uint64_t)((uint64_t)w & UINT64_C(0xFFFFFFFF)) * mant;
+        uint64_t hi = ((uint64_t)w >> 32) * mant;
+        uint64_t t = lo + (UINT64_C(1) << (k - 1u)); /* < 2^63 + 2^62 */
+        return (int64_t)((hi + (t >> 32)) >> (k - 32u));
+    }
+    return pfx_mixture_mul_recip(w, r, 30u);
+}
+
 static pfx_status_t pair_merge_cov(const pfx_component_t *ci, const pfx_component_t *cj, int64_t wi, int64_t wj,
                                    pfx_component_t *m)
 {
@@ -999,8 +1033,8 @@ static pfx_status_t pair_merge_cov(const pfx_component_t *ci, const pfx_componen
     if (wi + wj <= 0 || pfx_mixture_recip64((uint64_t)(wi + wj), &r) != PFX_OK) {
         return PFX_ERR_DEGENERATE;
     }
-    ai = pfx_mixture_mul_recip(wi, &r, 30u);
-    aj = pfx_mixture_mul_recip(wj, &r, 30u);
+    ai = weight_fraction(wi, &r);
+    aj = weight_fraction(wj, &r);
     aij = pfx_mixture_shr_round(ai * aj, 30u); /* <= 2^61 before the shift */
     dx = pfx_mixture_offset(ci->x, cj->x);
     dy = pfx_mixture_offset(ci->y, cj->y);
@@ -1018,9 +1052,9 @@ static uint32_t pair_cost(const pfx_component_t *c, const pfx_mixture_scratch_t 
     if (pair_merge_cov(&c[i], &c[j], s->weight[i], s->weight[j], &m) != PFX_OK) {
         return UINT32_MAX - 1u; /* never chosen before a real pair */
     }
-    b = pfx_mixture_mul(s->weight[i] + s->weight[j], logdet_of(&m), 8u);
-    b = pfx_fixed_sub64_sat(b, pfx_mixture_mul(s->weight[i], s->logdet[i], 8u));
-    b = pfx_fixed_sub64_sat(b, pfx_mixture_mul(s->weight[j], s->logdet[j], 8u));
+    b = weighted_logdet(s->weight[i] + s->weight[j], logdet_of(&m));
+    b = pfx_fixed_sub64_sat(b, weighted_logdet(s->weight[i], s->logdet[i]));
+    b = pfx_fixed_sub64_sat(b, weighted_logdet(s->weight[j], s->logdet[j]));
     return cost_pack(b);
 }
 
