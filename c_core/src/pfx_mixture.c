@@ -515,7 +515,7 @@ pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n)
 {
     uint32_t k;
     int32_t m;
-    uint64_t sum = 0u;
+    uint64_t sum = 0u, last = 0u;
     pfx_log2_q16_t l2;
     int64_t lse;
     if (n == 0u) {
@@ -526,7 +526,11 @@ pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n)
     }
     m = max_log2w(c, n);
     for (k = 0u; k < n; ++k) {
-        sum += (uint64_t)pfx_fixed_exp2_frac_sat(pfx_mixture_sat32((int64_t)c[k].log2w - m));
+        /* equal weights in a row (the arcs of a first ring) reuse the last power */
+        if (k == 0u || c[k].log2w != c[k - 1u].log2w) {
+            last = (uint64_t)pfx_fixed_exp2_frac_sat(pfx_mixture_sat32((int64_t)c[k].log2w - m));
+        }
+        sum += last;
     }
     (void)pfx_fixed_log2_u64(sum, &l2); /* sum >= 2^30 > 0 */
     lse = (int64_t)m + l2 - (INT64_C(30) << 16);
@@ -907,6 +911,17 @@ static void order_heaviest(const pfx_component_t *c, uint32_t n, uint8_t *order)
     }
 }
 
+/* w[k] = 2^(log2w_k - lmax) in Q40 (pfx_mixture_lin_q40) for k < n; equal
+ * weights in a row (the arcs of a first ring) reuse the last value. */
+static void lin_weights(const pfx_component_t *c, uint32_t n, int32_t lmax, int64_t *w)
+{
+    uint32_t k;
+    for (k = 0u; k < n; ++k) {
+        w[k] = (k > 0u && c[k].log2w == c[k - 1u].log2w) ? w[k - 1u]
+                                                         : pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
+    }
+}
+
 pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q16_t gate, pfx_mixture_scratch_t *s)
 {
     uint32_t i, k, nseeds = 0u, nout = 0u;
@@ -939,9 +954,7 @@ pfx_status_t pfx_mixture_gate_merge(pfx_component_t *c, uint32_t *n, pfx_ratio_q
     /* Linear weights once per component, not once per pass of moments_core
      * over each group: the same values (moments_core's own formula). */
     lmax = max_log2w(c, *n);
-    for (k = 0u; k < *n; ++k) {
-        s->weight[k] = pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
-    }
+    lin_weights(c, *n, lmax, s->weight);
     /* Groups in the index order of their seeds (the reference's sorted(seeds)),
      * members in index order. */
     for (k = 0u; k < *n; ++k) {
@@ -1086,8 +1099,8 @@ pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap,
     }
     /* Weights normalised to a total of 2^40 (the reference normalises to 1). */
     lmax = max_log2w(c, nn);
+    lin_weights(c, nn, lmax, s->weight);
     for (k = 0u; k < nn; ++k) {
-        s->weight[k] = pfx_mixture_lin_q40((int64_t)c[k].log2w - lmax);
         wsum += s->weight[k];
     }
     (void)pfx_mixture_recip64((uint64_t)wsum, &r); /* wsum >= 2^40 */
