@@ -329,10 +329,18 @@ static inline pfx_u128_t pfx_mixture_u128_mul(uint64_t a, uint64_t b)
     return r;
 }
 
-/* pfx_mixture_cmp_products, inline: sign of a b - c d, exact. */
+/* pfx_mixture_cmp_products, inline: sign of a b - c d, exact.  Factors
+ * that all fit 32 bits (the usual ranges and offsets of a tag) take two
+ * 32 x 32 -> 64 products; any others the 128-bit ones. */
 static inline int pfx_mixture_cmp_products_inline(uint64_t a, uint64_t b, uint64_t c, uint64_t d)
 {
-    pfx_u128_t x = pfx_mixture_u128_mul(a, b), y = pfx_mixture_u128_mul(c, d);
+    pfx_u128_t x, y;
+    if (((a | b | c | d) >> 32) == 0u) {
+        uint64_t p = (uint64_t)(uint32_t)a * (uint32_t)b, q = (uint64_t)(uint32_t)c * (uint32_t)d;
+        return (p < q) ? -1 : ((p > q) ? 1 : 0);
+    }
+    x = pfx_mixture_u128_mul(a, b);
+    y = pfx_mixture_u128_mul(c, d);
     if (x.hi != y.hi) {
         return (x.hi < y.hi) ? -1 : 1;
     }

@@ -316,36 +316,27 @@ pfx_status_t pfx_mixture_recip64(uint64_t x, pfx_recip64_t *r)
 }
 
 /* num * 2^frac / x = num * mant * 2^(frac - shift): one mul64 (exact
- * product, one rounding) or, when frac > shift, a saturating left shift. */
+ * product, one rounding) or, when frac > shift, a saturating left shift.
+ * The common case of the mixture code, a linear weight 0 <= num < 2^42
+ * against the reciprocal of a weight sum (k = shift - frac in [33, 63]),
+ * skips mul64's dispatch: num mant = hi 2^32 + lo (hi = (num >> 32) mant
+ * < 2^41, lo < 2^63), and as the rounding bias 2^(k-1) is a multiple of
+ * 2^32, floor((num mant + 2^(k-1)) / 2^k) = floor((hi + floor((lo +
+ * 2^(k-1)) / 2^32)) / 2^(k-32)): mul64's value (ties toward +infinity). */
 int64_t pfx_mixture_mul_recip(int64_t num, const pfx_recip64_t *r, unsigned frac)
 {
+    if (num >= 0 && num < (INT64_C(1) << 42) && r->mant >= 0 && r->shift >= frac + 33u && r->shift <= frac + 63u) {
+        unsigned k = r->shift - frac;
+        uint64_t mant = (uint64_t)(uint32_t)r->mant;
+        uint64_t lo = (uint64_t)((uint64_t)num & UINT64_C(0xFFFFFFFF)) * mant;
+        uint64_t hi = ((uint64_t)num >> 32) * mant;
+        uint64_t t = lo + (UINT64_C(1) << (k - 1u)); /* < 2^63 + 2^62 */
+        return (int64_t)((hi + (t >> 32)) >> (k - 32u));
+    }
     if (r->shift >= frac) {
         return pfx_mixture_mul_var(num, r->mant, r->shift - frac);
     }
     return pfx_fixed_shl64_sat(pfx_mixture_mul_var(num, r->mant, 0u), frac - r->shift);
-}
-
-/*
- * pfx_mixture_mul_recip(w, r, frac) for a linear weight w in [0, 2^42) and
- * the reciprocal of a weight sum large enough that k = shift - frac is in
- * [33, 63] (the mixture code's sums of Q40 weights): w mant = hi 2^32 + lo
- * (hi = (w >> 32) mant < 2^41, lo < 2^63), and as the rounding bias
- * 2^(k-1) is a multiple of 2^32,
- *   floor((w mant + 2^(k-1)) / 2^k) = floor((hi + floor((lo + 2^(k-1)) / 2^32)) / 2^(k-32)),
- * mul64's value (ties toward +infinity) without its dispatch.  Anything
- * else: pfx_mixture_mul_recip.
- */
-static int64_t mul_recip_weight(int64_t w, const pfx_recip64_t *r, unsigned frac)
-{
-    if (w >= 0 && w < (INT64_C(1) << 42) && r->mant >= 0 && r->shift >= frac + 33u && r->shift <= frac + 63u) {
-        unsigned k = r->shift - frac;
-        uint64_t mant = (uint64_t)(uint32_t)r->mant;
-        uint64_t lo = (uint64_t)((uint64_t)w & UINT64_C(0xFFFFFFFF)) * mant;
-        uint64_t hi = ((uint64_t)w >> 32) * mant;
-        uint64_t t = lo + (UINT64_C(1) << (k - 1u)); /* < 2^63 + 2^62 */
-        return (int64_t)((hi + (t >> 32)) >> (k - 32u));
-    }
-    return pfx_mixture_mul_recip(w, r, frac);
 }
 
 /* 2^x in Q40 for x <= 0 (Q16): mant (Q30, [1, 2)) * 2^(floor(x) + 10).
@@ -577,7 +568,7 @@ static pfx_status_t moments_core(const pfx_component_t *c, const uint8_t *idx, u
     for (k = 0u; k < n; ++k) {
         const pfx_component_t *ck = &c[idx[k]];
         int64_t wk = (w != NULL) ? w[idx[k]] : pfx_mixture_lin_q40((int64_t)ck->log2w - lmax);
-        int64_t a = mul_recip_weight(wk, &r, 30u); /* <= 2^30 (+1) */
+        int64_t a = pfx_mixture_mul_recip(wk, &r, 30u); /* <= 2^30 (+1) */
         ax += a * pfx_mixture_offset(ref->x, ck->x);    /* <= 2^31 * 2^30 each, sum a ~ 2^30 */
         ay += a * pfx_mixture_offset(ref->y, ck->y);
     }
@@ -586,7 +577,7 @@ static pfx_status_t moments_core(const pfx_component_t *c, const uint8_t *idx, u
     for (k = 0u; k < n; ++k) {
         const pfx_component_t *ck = &c[idx[k]];
         int64_t wk = (w != NULL) ? w[idx[k]] : pfx_mixture_lin_q40((int64_t)ck->log2w - lmax);
-        int64_t a = mul_recip_weight(wk, &r, 30u);
+        int64_t a = pfx_mixture_mul_recip(wk, &r, 30u);
         int64_t ex = pfx_mixture_offset(ref->x, ck->x) * 1024 - mx; /* Q20, |.| <= 2^41 */
         int64_t ey = pfx_mixture_offset(ref->y, ck->y) * 1024 - my;
         /* a * P <= 2^31 * 2^31; the spread term saturates on its own. */
@@ -1040,7 +1031,6 @@ static int64_t weighted_logdet(int64_t w, int32_t l)
  * d d^T in Q20 (exact, <= 2^60), times a_i a_j >> 30 (one rounding, mul64
  * when it leaves 32 bits); stored through pfx_mixture_store_cov.
  */
-
 static pfx_status_t pair_merge_cov(const pfx_component_t *ci, const pfx_component_t *cj, int64_t wi, int64_t wj,
                                    pfx_component_t *m)
 {
@@ -1049,8 +1039,8 @@ static pfx_status_t pair_merge_cov(const pfx_component_t *ci, const pfx_componen
     if (wi + wj <= 0 || pfx_mixture_recip64((uint64_t)(wi + wj), &r) != PFX_OK) {
         return PFX_ERR_DEGENERATE;
     }
-    ai = mul_recip_weight(wi, &r, 30u);
-    aj = mul_recip_weight(wj, &r, 30u);
+    ai = pfx_mixture_mul_recip(wi, &r, 30u);
+    aj = pfx_mixture_mul_recip(wj, &r, 30u);
     aij = pfx_mixture_shr_round(ai * aj, 30u); /* <= 2^61 before the shift */
     dx = pfx_mixture_offset(ci->x, cj->x);
     dy = pfx_mixture_offset(ci->y, cj->y);
@@ -1105,7 +1095,7 @@ pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap,
     }
     (void)pfx_mixture_recip64((uint64_t)wsum, &r); /* wsum >= 2^40 */
     for (k = 0u; k < nn; ++k) {
-        s->weight[k] = mul_recip_weight(s->weight[k], &r, 40u);
+        s->weight[k] = pfx_mixture_mul_recip(s->weight[k], &r, 40u);
         if (s->weight[k] < 1) {
             s->weight[k] = 1; /* below 2^-40 of the total: kept as the smallest weight */
         }
@@ -1266,7 +1256,7 @@ pfx_status_t pfx_mixture_point_estimate(const pfx_component_t *c, uint32_t n, pf
     (void)pfx_mixture_recip64((uint64_t)wsum, &r);
     lim = min_weight;
     for (i = 0u; i < nmodes; ++i) {
-        if (mul_recip_weight(mode_w[rank[i]], &r, 30u) >= lim) {
+        if (pfx_mixture_mul_recip(mode_w[rank[i]], &r, 30u) >= lim) {
             ++found;
         }
     }
@@ -1279,7 +1269,7 @@ pfx_status_t pfx_mixture_point_estimate(const pfx_component_t *c, uint32_t n, pf
         }
     }
     st = moments_core(c, members, m, w, 0, &mom, NULL);
-    out->mode_weight = pfx_mixture_sat32(mul_recip_weight(mode_w[rank[0]], &r, 30u));
+    out->mode_weight = pfx_mixture_sat32(pfx_mixture_mul_recip(mode_w[rank[0]], &r, 30u));
     out->mode_count = (found > 0u) ? found : 1u;
     out->x = mom.x;
     out->y = mom.y;

@@ -726,8 +726,8 @@ pfx_status_t pfx_range_broad(const pfx_component_t *c, const pfx_ring_t *g, cons
  * lambda_max), with rho = |mean - centre| (rho2 = rho^2, Q20, <= 2^61).
  * No square root: with A = gate (var_bound + lambda) (Q20) and num = r^2 + rho^2 - A,
  *   (rho - r)^2 > A  <=>  num > 2 r rho  <=>  num > 0 and num^2 > 4 r^2 rho^2
- * (exact: 64-bit when num, 4 r^2 and rho^2 fit 32 bits, else 128-bit).
- * r <= 2^24 (Q10), lambda <= 2^32, A < 2^63: no overflow.  gate = 0: off.
+ * (exact, pfx_mixture_cmp_products_inline).  r <= 2^24 (Q10), lambda <=
+ * 2^32, A < 2^63: no overflow.  gate = 0: off.
  */
 static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q16_t gate)
 {
@@ -739,14 +739,7 @@ static int ring_far(int64_t rho2, int64_t lam, const pfx_ring_t *g, pfx_ratio_q1
     r2 = (int64_t)(int32_t)r * (int32_t)r;
     a = pfx_mixture_mul(gate, (int64_t)g->var_bound + (lam > 0 ? lam : 0), 16u);
     num = r2 + rho2 - a;
-    if (num <= 0) {
-        return 0;
-    }
-    if (num <= (int64_t)UINT32_MAX && r2 < (INT64_C(1) << 30) && rho2 <= (int64_t)UINT32_MAX) {
-        /* rings within 32 m and offsets within 64 m: both sides are 32 x 32 -> 64 products */
-        return (uint64_t)(uint32_t)num * (uint32_t)num > (uint64_t)((uint32_t)r2 * 4u) * (uint32_t)rho2;
-    }
-    return pfx_mixture_cmp_products_inline((uint64_t)num, (uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2) > 0;
+    return num > 0 && pfx_mixture_cmp_products_inline((uint64_t)num, (uint64_t)num, (uint64_t)r2 * 4u, (uint64_t)rho2) > 0;
 }
 
 /*

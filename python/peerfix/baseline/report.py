@@ -44,7 +44,6 @@ MAP_LABELS = 20  # moved agents named on the map, largest first
 MOVED_ROWS = 25  # largest changes listed per scenario (all of them are in the JUnit failure text)
 
 
-
 def _fmt(x) -> str:
     if x is None:
         return "–"

@@ -28,13 +28,13 @@ from peerfix.budget.build import ROOT, TAG_API, TAG_IMAGE_DIR, BuildResult, Targ
 from peerfix.budget.capture import (
     ENTRY_POINTS,
     HEADLINE,
+    HEADLINE_BUCKETS,
     ROBUST_RUNS,
     RUNS,
     CapturedCall,
     CaptureSet,
     Replayed,
     capture,
-    from_tracking_prior,
     is_headline,
     replay,
 )
@@ -153,11 +153,11 @@ def budget_report(
     updates = [r for r in replayed if r.call.entry == "pfx_node_update"]
     headline = [r for r in updates if is_headline(r.call)]
     head = _stats(headline, clock_mhz) if headline else None
-    # The headline split by where the update starts (capture.HEADLINE_BUCKETS): acquisition from
-    # the uniform prior, tracking from last epoch's predicted belief.
-    by_prior = {kind: [r for r in headline if from_tracking_prior(r.call) == tracking]
-                for kind, tracking in (("acquisition", False), ("tracking", True))}
-    prior_stats = {kind: _stats(rows, clock_mhz) if rows else None for kind, rows in by_prior.items()}
+    # The headline split by where the update starts: the rows of its two buckets (capture.HEADLINE_BUCKETS,
+    # acquisition from the uniform prior, tracking from last epoch's predicted belief) in the update's table.
+    update_rows = entries.get("pfx_node_update", {}).get("configs", [])
+    prior_stats = {kind: next((c for c in update_rows if all(c.get(k) == v for k, v in bucket)), None)
+                   for kind, bucket in zip(("acquisition", "tracking"), HEADLINE_BUCKETS)}
     mismatched = [r for r in replayed if not r.bit_exact]
     worst_entry = max(entries, key=lambda e: entries[e]["stack_static_bytes"]) if entries else None
     per_entry_counts = {e: v["calls"] for e, v in entries.items()}
