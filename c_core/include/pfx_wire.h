@@ -47,6 +47,10 @@ typedef struct {
  * Bitwise, no table (flash matters more than speed for 77 bytes). */
 uint16_t pfx_wire_crc16(const uint8_t *data, size_t len);
 
+/* The variance of code `code` in Q20 m^2: round(2^(code/8 + 10)), computed from
+ * eight mantissas (exact for every code); 0 for code >= PFX_WIRE_VAR_CODES. */
+uint32_t pfx_wire_var_value(uint32_t code);
+
 /* Frame size for count components (0 when count is 0 or above PFX_MAX_COMPONENTS). */
 size_t pfx_wire_size(uint32_t count);
 

@@ -9,6 +9,9 @@ Outside references:
 """
 
 import random
+import subprocess
+import sys
+from pathlib import Path
 
 import pytest
 from crccheck.crc import Crc16Kermit
@@ -19,6 +22,7 @@ from peerfix.core import Status
 from peerfix.core import wire
 from peerfix.core._pfx import ffi, lib
 
+ROOT = Path(__file__).resolve().parents[2]
 MAX_K = lib.PFX_MAX_COMPONENTS
 SETTINGS = settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -110,6 +114,24 @@ def test_frame_size_per_k(k):
 
 def test_k4_frame_meets_the_48_byte_goal():
     assert lib.pfx_wire_size(4) == 45 <= 48
+
+
+def test_variance_codes_are_exactly_rounded_powers_of_two():
+    # D[c] = round(2^(c/8 + 10)) checked in integers alone: n is the rounded value of
+    # x = 2^((c + 80) / 8) exactly when (n - 1/2)^8 <= x^8 < (n + 1/2)^8, i.e.
+    # (2n - 1)^8 <= 2^(c + 88) < (2n + 1)^8 (x is irrational unless 8 | c: no ties).
+    for c in range(lib.PFX_WIRE_VAR_CODES):
+        n = lib.pfx_wire_var_value(c)
+        assert (2 * n - 1) ** 8 <= 2 ** (c + 88) < (2 * n + 1) ** 8, c
+        assert n == wire.variance_table()[c]  # the Python mirror's table
+    assert lib.pfx_wire_var_value(lib.PFX_WIRE_VAR_CODES) == 0
+    assert lib.pfx_wire_var_value(2**32 - 1) == 0
+
+
+def test_variance_mantissas_are_up_to_date():
+    out = subprocess.run([sys.executable, str(ROOT / "tools" / "gen_wire_table.py"), "--check"],
+                         capture_output=True, text=True)  # fmt: skip
+    assert out.returncode == 0, out.stderr
 
 
 # --- encode: C and the Python mirror agree; quantisation is stable ----------------
