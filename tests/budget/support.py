@@ -8,7 +8,9 @@ test_environment.py fails instead when CI=true, so CI never skips silently.
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
+import io
 import shutil
 
 import pytest
@@ -44,3 +46,13 @@ def target_emulator(name: str):
         result = target_build(name)
         _emulators[name] = Emulator.from_elf(result.elf, result.config.cpu)
     return _emulators[name]
+
+
+def run_cli(argv: list[str]) -> tuple[int, str]:
+    """`peerfix ARGV` in this process: (exit status, what it printed)."""
+    from peerfix.cli import main
+
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        status = main(argv)
+    return status, out.getvalue()

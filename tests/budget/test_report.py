@@ -7,13 +7,11 @@ reuse it.
 
 from __future__ import annotations
 
-import contextlib
-import io
 import json
 
 import pytest
 
-from .support import needs_cross
+from .support import needs_cross, run_cli
 
 pytestmark = needs_cross
 
@@ -24,15 +22,6 @@ STABLE_KEYS = (
 )
 POSITIVE = ("update_cycles_max", "update_cycles_median", "flash_bytes", "node_state_bytes", "stack_bytes",
             "message_bytes_k4", "bit_exact_calls", "inbox_bytes", "workspace_bytes", "stack_measured_bytes")
-
-
-def run_cli(argv: list[str]) -> tuple[int, str]:
-    from peerfix.cli import main
-
-    out = io.StringIO()
-    with contextlib.redirect_stdout(out):
-        status = main(argv)
-    return status, out.getvalue()
 
 
 # A budget whose goal is not met and whose release limit holds: the command still succeeds.

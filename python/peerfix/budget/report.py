@@ -9,7 +9,8 @@ the caller-owned structs on the target, worst-case stack per entry point
 (static call-graph bound and measured high-water mark), message bytes per K,
 and the bit-exact / mismatched call counts.  :func:`render_markdown` turns it
 into the table a person reads; :func:`check_budget` holds it against the
-limits of budget.toml.
+limits of budget.toml; peerfix.budget.compare holds it against an earlier
+release's report.
 
 Cycle figures are an ESTIMATE: the documented instruction timings of
 peerfix.budget.timing summed over the emulated instructions, zero wait states.
@@ -38,6 +39,7 @@ from peerfix.budget.capture import (
     is_headline,
     replay,
 )
+from peerfix.budget.compare import FUNCTION_ROWS
 from peerfix.budget.stack import analyse
 from peerfix.budget.timing import ESTIMATE_NOTE, MODELS
 
@@ -60,6 +62,11 @@ LARGEST_FUNCTIONS = 15  # rows of the report's flash table (the JSON has every f
 
 
 # ---- measurement -------------------------------------------------------------------
+
+
+def settings_label(robust: bool) -> str:
+    """The report's "settings": which estimator settings the captured runs used."""
+    return "robust preset" if robust else "defaults"
 
 
 @lru_cache(maxsize=8)
@@ -168,7 +175,7 @@ def budget_report(
         "build_key": result.key,  # hash of compiler, flags and every core source: which core was measured
         "clock_mhz": clock_mhz,
         "quick": quick,
-        "settings": "robust preset" if robust else "defaults",
+        "settings": settings_label(robust),
         "update_config": dict(HEADLINE),
         "update_calls": len(headline),
         "update_cycles_median": head["cycles_median"] if head else None,
@@ -301,6 +308,38 @@ def _table(head: list[str], rows: list[list[str]]) -> list[str]:
     return out
 
 
+def _signed(x) -> str:
+    return "-" if x is None else ("+" if x > 0 else "") + _n(x)
+
+
+def render_comparison(cmp: dict) -> list[str]:
+    """Markdown lines of a report held against an earlier one (peerfix.budget.compare)."""
+    limit = cmp["max_growth_percent"]
+    lines = ["", f"## Against {cmp['file']}", "",
+             f"Earlier core {cmp['build_key_before'] or '?'}, this core {cmp['build_key_now'] or '?'}"
+             + (f"; growth allowed: {limit:g} %." if limit is not None else "."), ""]
+    rows = []
+    for c in cmp["changes"]:
+        if c["before"] is None and c["now"] is None:
+            continue
+        mark = "GREW BEYOND" if c["grew_beyond"] else ("not in the earlier report" if c["before"] is None else "")
+        rows.append([f"{c['figure']} ({c['unit']})", _n(c["before"]), _n(c["now"]), _signed(c["change"]),
+                     "-" if c["percent"] is None else f"{c['percent']:+.1f}", mark])
+    lines += _table(["figure", "before", "now", "change", "change %", ""], rows)
+    fns = cmp["functions"]
+    if fns:
+        shown = fns[:FUNCTION_ROWS]
+        lines += ["", f"Functions whose code changed most ({len(shown)} of {len(fns)}; bytes):", ""]
+        lines += _table(["function", "before", "now", "change"],
+                        [[f["function"], _n(f["before"]), _n(f["now"]), _signed(f["change"])] for f in shown])
+    else:
+        lines += ["", "No function's code changed size."]
+    lines += [""] + [f"- {n}" for n in cmp["notes"]]
+    if cmp["grew_beyond"]:
+        lines += ["", f"GREW BEYOND {limit:g} %: {', '.join(cmp['grew_beyond'])}"]
+    return lines
+
+
 # Configuration keys of the per-entry tables and their column names.
 CONFIG_COLUMNS = {"neighbours": "neighbours", "K": "K", "tracking": "prior", "components": "components"}
 
@@ -374,6 +413,8 @@ def render_markdown(doc: dict) -> str:
                       "guards a release must hold."]
     elif b:
         lines += ["", f"Budget: {b['file']} is written for {b['config']}; not applied to {doc['config']}."]
+    if doc.get("against"):
+        lines += render_comparison(doc["against"])
 
     lines += ["", "## Entry points", ""]
     rows = []
