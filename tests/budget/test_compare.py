@@ -33,8 +33,10 @@ def change(doc: dict, figure: str) -> dict:
 def test_changes_are_the_differences_worked_out_by_hand(tmp_path):
     from peerfix.budget.compare import compare_reports
 
-    before = report(flash_bytes=20_000, stack_bytes=700, flash_functions={"a": 100, "b": 50, "gone": 8})
+    before = report(flash_bytes=20_000, stack_bytes=700, flash_functions={"a": 100, "b": 50, "gone": 8},
+                    flash_data={"k_table": 672})
     now = report(flash_bytes=19_000, stack_bytes=721, flash_functions={"a": 130, "b": 50, "new": 12},
+                 flash_data={"k_table": 32},
                  entries={"pfx_node_update": {"cycles_median": 1100, "cycles_max": 3000, "stack_static_bytes": 721},
                           "pfx_wire_size": {"cycles_median": 9, "cycles_max": 9, "stack_static_bytes": 0}})
     cmp = compare_reports(before, now, tmp_path / "old.json", max_growth_pct=2.5)
@@ -48,8 +50,9 @@ def test_changes_are_the_differences_worked_out_by_hand(tmp_path):
     new_entry = change(cmp, "pfx_wire_size cycles_max")
     assert (new_entry["before"], new_entry["now"], new_entry["grew_beyond"]) == (None, 9, False)
     assert cmp["grew_beyond"] == ["stack_bytes", "pfx_node_update cycles_median", "pfx_node_update stack_static_bytes"]
-    # functions by the size of their change; one that appeared or went counts from 0
-    assert [(f["function"], f["change"]) for f in cmp["functions"]] == [("a", 30), ("new", 12), ("gone", -8)]
+    # functions and tables by the size of their change; one that appeared or went counts from 0
+    assert [(f["symbol"], f["kind"], f["change"]) for f in cmp["symbols"]] == [
+        ("k_table", "table", -640), ("a", "code", 30), ("new", "code", 12), ("gone", "code", -8)]
 
 
 def test_growth_limit_is_strict_and_growth_from_nothing_exceeds_it(tmp_path):
@@ -64,6 +67,15 @@ def test_growth_limit_is_strict_and_growth_from_nothing_exceeds_it(tmp_path):
     assert change(from_zero, "ram_static_bytes")["percent"] is None
     unlimited = compare_reports(report(flash_bytes=1000), report(flash_bytes=9000), tmp_path / "o.json")
     assert unlimited["grew_beyond"] == []  # without a limit nothing is marked
+
+
+def test_a_symbol_table_only_one_report_has_is_not_compared(tmp_path):
+    from peerfix.budget.compare import compare_reports
+
+    older = report(flash_functions={"f": 10})  # written before the report listed tables
+    cmp = compare_reports(older, report(flash_functions={"f": 10}, flash_data={"k": 64}), tmp_path / "o.json")
+    assert cmp["symbols"] == []  # not "every table is new"
+    assert any(n.startswith("flash_data is missing from the earlier report") for n in cmp["notes"])
 
 
 def test_only_like_is_compared_with_like(tmp_path):
@@ -115,7 +127,7 @@ def test_command_against_itself_and_against_a_smaller_release(tmp_path):
     earlier = tmp_path / "budget.json"
     status, stdout = run_cli(["budget", "--quick", "--against", str(earlier), "--max-growth", "0"])
     assert status == 0  # the same core and calls: every figure unchanged
-    assert f"## Against {earlier}" in stdout and "No function's code changed size." in stdout
+    assert f"## Against {earlier}" in stdout and "No function or table changed size." in stdout
     smaller = json.loads(earlier.read_text())
     smaller["flash_bytes"] = int(doc["flash_bytes"] * 0.9)  # as if the earlier release were 10 % smaller
     name, size = next(iter(doc["flash_functions"].items()))
@@ -126,6 +138,6 @@ def test_command_against_itself_and_against_a_smaller_release(tmp_path):
     assert status == 1
     against = json.loads(stdout)["against"]
     assert against["grew_beyond"] == ["flash_bytes"]
-    assert against["functions"] == [{"function": name, "before": size - 40, "now": size, "change": 40}]
+    assert against["symbols"] == [{"symbol": name, "kind": "code", "before": size - 40, "now": size, "change": 40}]
     status, _ = run_cli(["budget", "--quick", "--against", str(old)])
     assert status == 0  # without --max-growth the change is listed, not failed

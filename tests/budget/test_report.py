@@ -136,9 +136,9 @@ def test_tag_image_links_only_the_tag_api(quick):
     assert not absent & set(TAG_API)
 
 
-def test_flash_per_function_adds_up(quick):
+def test_flash_per_function_and_table_adds_up(quick):
     """Every function symbol's code bytes (from the ELF's symbol table) fit in .text, largest first,
-    and the markdown lists the largest."""
+    and the markdown lists the largest; the tables' bytes are their declarations' and fit in rodata."""
     _, doc, out_dir = quick
     funcs = doc["flash_functions"]
     assert "compact_core" in funcs and "pfx_node_update" in funcs
@@ -146,6 +146,11 @@ def test_flash_per_function_adds_up(quick):
     assert list(funcs.values()) == sorted(funcs.values(), reverse=True)
     largest = next(iter(funcs))
     assert f"| {largest} | {funcs[largest]:,} |" in (out_dir / "budget.md").read_text()
+    # tables: each data symbol's bytes are its C declaration's (elements x element size), within rodata
+    tables = doc["flash_data"]
+    assert tables["k_log2_table_q24"] == 257 * 4 and tables["k_cos_q30"] == 256 * 4
+    assert tables["k_var_words"] == 8 * 4
+    assert sum(tables.values()) <= doc["flash_sections"]["rodata"] + doc["flash_sections"]["data"]
 
 
 def test_tag_api_is_what_the_fixed_engine_calls():

@@ -134,6 +134,7 @@ class SizeReport:
     bss: int
     exidx: int = 0
     functions: dict[str, int] = field(default_factory=dict)  # code bytes per function symbol
+    objects: dict[str, int] = field(default_factory=dict)  # bytes per data symbol in flash (tables in .rodata / .data)
 
     @property
     def flash(self) -> int:
@@ -319,10 +320,14 @@ def sizes(elf: Path) -> SizeReport:
         f = ELFFile(fh)
         size = {s.name: s["sh_size"] for s in f.iter_sections()}
         funcs: dict[str, int] = {}
+        objects: dict[str, int] = {}
+        flash_data = {i for i, s in enumerate(f.iter_sections()) if s.name in (".rodata", ".data")}
         symtab = f.get_section_by_name(".symtab")
         for sym in symtab.iter_symbols():
             if sym["st_info"]["type"] == "STT_FUNC" and sym["st_size"] > 0:
                 funcs[sym.name] = max(funcs.get(sym.name, 0), sym["st_size"])
+            elif sym["st_info"]["type"] == "STT_OBJECT" and sym["st_size"] > 0 and sym["st_shndx"] in flash_data:
+                objects[sym.name] = max(objects.get(sym.name, 0), sym["st_size"])
     return SizeReport(
         text=size.get(".text", 0),
         rodata=size.get(".rodata", 0),
@@ -330,6 +335,7 @@ def sizes(elf: Path) -> SizeReport:
         bss=size.get(".bss", 0),
         exidx=size.get(".ARM.exidx", 0),
         functions=funcs,
+        objects=objects,
     )
 
 

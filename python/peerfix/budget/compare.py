@@ -5,9 +5,9 @@ against a report of an earlier release (the budget.json that `peerfix budget
 --out` wrote then) and lists, figure by figure, the value before, the value
 now and the change: flash (whole core and tag image), RAM, stack, message
 bytes, the update's cycles (headline, by prior, any configuration) and each
-entry point's median and maximum cycles and stack bound.  The functions whose
-code grew or shrank most are listed beside them, so that a change in flash
-points at its cause.  With ``max_growth_pct`` every compared figure that grew
+entry point's median and maximum cycles and stack bound.  The functions and
+tables that grew or shrank most are listed beside them, so that a change in
+flash points at its cause.  With ``max_growth_pct`` every compared figure that grew
 by more than that share is marked, and the command fails.
 
 Only like is compared with like: both reports must be for the same build
@@ -51,7 +51,9 @@ FIGURES = (
 ENTRY_FIGURES = (("cycles_median", "cycles"), ("cycles_max", "cycles"), ("stack_static_bytes", "B"))
 # Fields a report must have to be compared (the rest may be missing in an older release's report).
 REQUIRED = ("config", "target", "opt", "entries", "flash_bytes")
-FUNCTION_ROWS = 12  # functions listed by the size of their change
+FUNCTION_ROWS = 12  # functions and tables listed by the size of their change
+# The report's per-symbol flash tables and what each holds.
+SYMBOL_TABLES = {"flash_functions": "code", "flash_data": "table"}
 
 
 @dataclass(frozen=True)
@@ -117,10 +119,10 @@ def load_report(path: Path) -> dict:
             if value is not None and (isinstance(value, bool) or not isinstance(value, (int, float))):
                 raise InputError(path, _line_of(text, name), f"entries.{name}.{field}",
                                  f"expected a number, found {value!r}")
-    functions = doc.get("flash_functions", {})
-    if not isinstance(functions, dict) or not all(isinstance(v, int) for v in functions.values()):
-        raise InputError(path, _line_of(text, "flash_functions"), "flash_functions",
-                         "expected an object of function name: bytes")
+    for key in SYMBOL_TABLES:
+        table = doc.get(key, {})
+        if not isinstance(table, dict) or not all(isinstance(v, int) for v in table.values()):
+            raise InputError(path, _line_of(text, key), key, "expected an object of symbol name: bytes")
     return doc
 
 
@@ -156,13 +158,18 @@ def compare_reports(before: dict, now: dict, before_path: Path, max_growth_pct: 
         for field, unit in ENTRY_FIGURES:
             b, n = old_entry.get(field), now["entries"][name].get(field)
             changes.append(Change(f"{name} {field}", unit, b, n, _grew_beyond(b, n, max_growth_pct)))
-    old_fn, new_fn = before.get("flash_functions", {}), now.get("flash_functions", {})
-    functions = [{"function": f, "before": old_fn.get(f), "now": new_fn.get(f),
-                  "change": new_fn.get(f, 0) - old_fn.get(f, 0)}
-                 for f in sorted(set(old_fn) | set(new_fn))]
-    functions = [f for f in functions if f["change"] != 0]
-    functions.sort(key=lambda f: (-abs(f["change"]), f["function"]))
+    symbols = []
     notes = []
+    for key, kind in SYMBOL_TABLES.items():
+        if key not in before or key not in now:
+            notes.append(f"{key} is missing from {'the earlier' if key not in before else 'this'} report: "
+                         f"its symbols are not compared")
+            continue
+        old_t, new_t = before[key], now[key]
+        symbols += [{"symbol": name, "kind": kind, "before": old_t.get(name), "now": new_t.get(name),
+                     "change": new_t.get(name, 0) - old_t.get(name, 0)}
+                    for name in sorted(set(old_t) | set(new_t)) if new_t.get(name, 0) != old_t.get(name, 0)]
+    symbols.sort(key=lambda f: (-abs(f["change"]), f["symbol"]))
     if bool(before.get("quick")) != bool(now.get("quick")):
         notes.append("one report is --quick and the other full: their cycle figures come from different samples")
     old_model = (before.get("cycle_model") or {}).get("source")
@@ -179,6 +186,6 @@ def compare_reports(before: dict, now: dict, before_path: Path, max_growth_pct: 
         "max_growth_percent": max_growth_pct,
         "changes": [c.as_dict() for c in changes],
         "grew_beyond": [c.figure for c in changes if c.grew_beyond],
-        "functions": functions,
+        "symbols": symbols,
         "notes": notes,
     }

@@ -189,6 +189,7 @@ def budget_report(
         "flash_bytes": size.flash,
         "flash_sections": size.flash_sections,
         "flash_functions": dict(sorted(size.functions.items(), key=lambda kv: (-kv[1], kv[0]))),
+        "flash_data": dict(sorted(size.objects.items(), key=lambda kv: (-kv[1], kv[0]))),  # tables
         "flash_bytes_tag_image": tag_size.flash,
         "tag_image": {
             "roots": list(TAG_API),
@@ -326,14 +327,15 @@ def render_comparison(cmp: dict) -> list[str]:
         rows.append([f"{c['figure']} ({c['unit']})", _n(c["before"]), _n(c["now"]), _signed(c["change"]),
                      "-" if c["percent"] is None else f"{c['percent']:+.1f}", mark])
     lines += _table(["figure", "before", "now", "change", "change %", ""], rows)
-    fns = cmp["functions"]
-    if fns:
-        shown = fns[:FUNCTION_ROWS]
-        lines += ["", f"Functions whose code changed most ({len(shown)} of {len(fns)}; bytes):", ""]
-        lines += _table(["function", "before", "now", "change"],
-                        [[f["function"], _n(f["before"]), _n(f["now"]), _signed(f["change"])] for f in shown])
+    syms = cmp["symbols"]
+    if syms:
+        shown = syms[:FUNCTION_ROWS]
+        lines += ["", f"Functions and tables whose size changed most ({len(shown)} of {len(syms)}; bytes):", ""]
+        lines += _table(["symbol", "kind", "before", "now", "change"],
+                        [[f["symbol"], f["kind"], _n(f["before"]), _n(f["now"]), _signed(f["change"])]
+                         for f in shown])
     else:
-        lines += ["", "No function's code changed size."]
+        lines += ["", "No function or table changed size."]
     lines += [""] + [f"- {n}" for n in cmp["notes"]]
     if cmp["grew_beyond"]:
         lines += ["", f"GREW BEYOND {limit:g} %: {', '.join(cmp['grew_beyond'])}"]

@@ -9,7 +9,7 @@ With --robust the calls come from runs with the robust preset (blocked
 paths, 20 iterations): its cost on the tag, which the budget file's limits
 (set for the defaults) do not cover, so they are not checked.
 --against an earlier release's budget.json lists what changed, figure by
-figure and function by function; with --max-growth PCT the command also
+figure and symbol by symbol (functions, tables); with --max-growth PCT the command also
 fails (exit 1) when a compared figure grew by more than PCT percent.
 """
 
