@@ -11,7 +11,10 @@ python=${PYTHON:-python3}
 if [ ! -x .venv/bin/python ]; then
     "$python" -m venv .venv
 fi
-.venv/bin/python -m pip install --quiet --upgrade pip
+# The build tools in the venv too, not only in pip's isolated build: the
+# in-place rebuild after a C change (DEVELOPERS.md) runs setup.py with them,
+# and a venv's own setuptools is too old for the SPDX license string.
+.venv/bin/python -m pip install --quiet --upgrade pip "setuptools>=77" wheel "cffi>=1.15"
 .venv/bin/python -m pip install --quiet -e ".[test]"
 if [ "${PEERFIX_NO_SYSTEM:-0}" != "1" ]; then
     bash tools/install_cross.sh || echo "setup: no Arm cross compiler: the target-budget tests will skip (and fail under CI=true)" >&2
