@@ -320,3 +320,45 @@ def test_command_robust_reports_the_settings_and_checks_no_budget(monkeypatch):
     assert seen["runs"] == report.ROBUST_RUNS
     assert doc["settings"] == "robust preset"
     assert "budget" not in doc  # the release limits are for the defaults: not applied
+
+
+def test_param_overrides_reach_the_captured_node_state():
+    """--param's settings are the estimator settings of the captured runs: the node
+    state each replayed update starts from carries them."""
+    from peerfix.budget.capture import Run, capture
+    from peerfix.core._pfx import ffi
+
+    run = Run("open-field", 0, 4, iterations=1, overrides=(("working_cap", 2),))
+    assert run.name.endswith(" working_cap=2")
+    updates = capture(4, 2, runs=(run,)).calls["pfx_node_update"]
+    assert updates
+    for call in updates:
+        buf = bytearray(call.args[0].data)
+        node = ffi.cast("pfx_node_t *", ffi.from_buffer(buf))
+        assert node.params.working_cap == 2
+
+
+def test_command_param_labels_the_settings_and_checks_no_budget(monkeypatch):
+    import peerfix.budget.report as report
+
+    _, calls = _robust_calls()
+    seen = {}
+
+    def fake_capture(*args, **kw):
+        seen.update(kw)
+        return calls
+
+    monkeypatch.setattr(report, "capture", fake_capture)
+    status, stdout = run_cli(["budget", "--quick", "--json", "--param", "candidate_cap=32",
+                              "--param", "ring_arc_spacing_m=1.5"])
+    doc = json.loads(stdout)
+    assert status == 0
+    assert all(r.overrides == (("candidate_cap", 32), ("ring_arc_spacing_m", 1.5)) for r in seen["runs"])
+    assert [r.preset for r in seen["runs"]] == [r.preset for r in report.RUNS]
+    assert doc["settings"] == "defaults, candidate_cap=32, ring_arc_spacing_m=1.5"
+    assert "budget" not in doc  # the release limits are for the defaults: not applied
+
+
+def test_command_param_refuses_an_unknown_setting():
+    with pytest.raises(SystemExit, match="--param 'nonsense=1': expected NAME=VALUE"):
+        run_cli(["budget", "--quick", "--param", "nonsense=1"])

@@ -179,13 +179,15 @@ class Run:
     iterations: int = 4
     robust: bool = False  # the robust preset (peerfix.reference.params.robust_preset) ...
     blocked_probability: float | None = None  # ... on a site with this blocked-path share (bias mean 1 m)
+    overrides: tuple[tuple[str, object], ...] = ()  # estimator settings set by hand (`peerfix budget --param`)
 
     @property
     def name(self) -> str:
         name = f"{self.preset} seed {self.seed} K={self.K}" + (f" {self.epochs} epochs" if self.epochs > 1 else "")
         if self.blocked_probability is not None:
             name += f" {self.blocked_probability:.0%} blocked"
-        return name + (f" robust preset {self.iterations} iterations" if self.robust else "")
+        name += f" robust preset {self.iterations} iterations" if self.robust else ""
+        return name + "".join(f" {k}={v}" for k, v in self.overrides)
 
 
 RUNS: tuple[Run, ...] = (
@@ -343,9 +345,9 @@ def run_and_record(run: Run, recorder: Recorder) -> None:
     site = {} if run.blocked_probability is None else {"blocked_probability": run.blocked_probability,
                                                        "blocked_bias_mean_m": 1.0}
     scenario = with_epochs(simulate(run.preset, run.seed, **site), run.epochs)
-    params = EstimatorParams(max_components=run.K)
-    if run.robust:
-        params = robust_preset(params)
+    params = EstimatorParams(max_components=run.K).replace(**dict(run.overrides))
+    if run.robust:  # what was set by hand wins over the preset, as in `peerfix run --robust --param`
+        params = robust_preset(params, keep=tuple(k for k, _ in run.overrides))
     recorder.source = run.name
     eng = CaptureEngine(recorder, params, blocked_model(scenario, params))
     run_scenario(scenario, eng, params, run.iterations, process_var_m2_per_s=PREDICT_Q_M2_PER_S, score=False)

@@ -18,6 +18,7 @@ peerfix.budget.timing summed over the emulated instructions, zero wait states.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import statistics
 import sys
@@ -64,9 +65,10 @@ LARGEST_FUNCTIONS = 15  # rows of the report's flash table (the JSON has every f
 # ---- measurement -------------------------------------------------------------------
 
 
-def settings_label(robust: bool) -> str:
+def settings_label(robust: bool, overrides: tuple[tuple[str, object], ...] = ()) -> str:
     """The report's "settings": which estimator settings the captured runs used."""
-    return "robust preset" if robust else "defaults"
+    label = "robust preset" if robust else "defaults"
+    return label + "".join(f", {k}={v}" for k, v in overrides)
 
 
 @lru_cache(maxsize=8)
@@ -115,19 +117,23 @@ def budget_report(
     calls: CaptureSet | list[CapturedCall] | None = None,
     seed: int = 0,
     robust: bool = False,
+    overrides: tuple[tuple[str, object], ...] = (),
 ) -> dict:
     """The budget document of one target configuration (JSON-ready).
 
     ``calls``: the captured calls to replay (default: :func:`capture` with
     1000 calls per entry point, 100 when ``quick``, from the scenario runs of
     capture.RUNS, or of capture.ROBUST_RUNS when ``robust``: the robust
-    preset's settings, whose cost the release budget does not cover)."""
+    preset's settings, whose cost the release budget does not cover).
+    ``overrides``: estimator settings (name, value) every captured run uses
+    instead of its own (a cost study; the release budget does not cover it)."""
     if clock_mhz <= 0:
         raise ValueError(f"clock {clock_mhz} MHz: must be > 0")
     result = build(config)
     if calls is None:
+        runs = tuple(dataclasses.replace(r, overrides=tuple(overrides)) for r in (ROBUST_RUNS if robust else RUNS))
         calls = capture(*((QUICK_CALLS, QUICK_HEADLINE) if quick else (FULL_CALLS, FULL_HEADLINE)), seed=seed,
-                        runs=ROBUST_RUNS if robust else RUNS)
+                        runs=runs)
     captured = calls if isinstance(calls, CaptureSet) else None
     call_list = calls.all_calls() if isinstance(calls, CaptureSet) else list(calls)
     replayed = replay_all(str(result.elf), result.key, config.cpu, tuple(call_list))
@@ -175,7 +181,7 @@ def budget_report(
         "build_key": result.key,  # hash of compiler, flags and every core source: which core was measured
         "clock_mhz": clock_mhz,
         "quick": quick,
-        "settings": settings_label(robust),
+        "settings": settings_label(robust, overrides),
         "update_config": dict(HEADLINE),
         "update_calls": len(headline),
         "update_cycles_median": head["cycles_median"] if head else None,

@@ -7,7 +7,9 @@ host's bytes.  Exit status 1 when any call mismatches or a [release] limit of
 the budget file is exceeded; the [targets] only report met / not met.
 With --robust the calls come from runs with the robust preset (blocked
 paths, 20 iterations): its cost on the tag, which the budget file's limits
-(set for the defaults) do not cover, so they are not checked.
+(set for the defaults) do not cover, so they are not checked; the same with
+--param NAME=VALUE (estimator settings of every captured run, as in
+`peerfix run`): what a setting costs on the tag.
 --against an earlier release's budget.json lists what changed, figure by
 figure and symbol by symbol (functions, tables); with --max-growth PCT the command also
 fails (exit 1) when a compared figure grew by more than PCT percent.
@@ -18,7 +20,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import print_json
+from .common import param_overrides, print_json
 
 
 def register(sub) -> None:
@@ -32,6 +34,9 @@ def register(sub) -> None:
     p.add_argument("--quick", action="store_true", help="100 captured calls per entry point instead of 1000")
     p.add_argument("--robust", action="store_true",
                    help="capture from runs with the robust preset (`peerfix run --robust`) on blocked paths; "
+                        "the budget file is not checked")
+    p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
+                   help="an estimator setting of every captured run (repeatable, as in `peerfix run`); "
                         "the budget file is not checked")
     p.add_argument("--budget", type=Path, metavar="FILE", default=None,
                    help="release budget to check (default: budget.toml of the repository)")
@@ -59,21 +64,23 @@ def handle(args) -> int:
         return 2
     from peerfix.budget.compare import check_comparable, compare_reports, load_report
 
+    overrides = param_overrides(args.param)
     config = TargetConfig(args.target, args.opt)
     earlier = None
     if args.against is not None:  # bad input fails before the work
         earlier = load_report(args.against)
-        check_comparable(earlier, args.against, config.name, settings_label(args.robust))
+        check_comparable(earlier, args.against, config.name, settings_label(args.robust, overrides))
     budget_path = args.budget or DEFAULT_BUDGET
     if args.budget is not None and not budget_path.is_file():
         raise SystemExit(f"peerfix: error: budget file {budget_path} not found")
     try:
-        doc = budget_report(config, clock_mhz=args.clock_mhz, quick=args.quick, robust=args.robust)
+        doc = budget_report(config, clock_mhz=args.clock_mhz, quick=args.quick, robust=args.robust,
+                            overrides=overrides)
     except ToolchainMissing as err:
         print(f"peerfix: error: {err}", file=sys.stderr)
         return 2
     checks = []
-    if budget_path.is_file() and not args.robust:
+    if budget_path.is_file() and not args.robust and not overrides:
         try:
             budget = load_budget(budget_path)
         except ValueError as err:  # tomllib.TOMLDecodeError included

@@ -43,23 +43,31 @@ def channel_from(args):
         raise SystemExit(f"peerfix: error: {err}")
 
 
+def param_overrides(items) -> tuple[tuple[str, object], ...]:
+    """--param NAME=VALUE items as (name, value) pairs, each value of its field's type."""
+    defaults = EstimatorParams()
+    fields = [f.name for f in dataclasses.fields(EstimatorParams)]
+    pairs = []
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep or name not in fields:
+            raise SystemExit(f"peerfix: error: --param {item!r}: expected NAME=VALUE with NAME one of {', '.join(fields)}")
+        kind = type(getattr(defaults, name))
+        try:
+            parsed = (value.lower() in ("1", "true", "yes", "on")) if kind is bool else kind(value)
+        except ValueError:
+            raise SystemExit(f"peerfix: error: --param {name}: {value!r} is not a {kind.__name__}")
+        pairs.append((name, parsed))
+    return tuple(pairs)
+
+
 def estimator_params(args) -> EstimatorParams:
     params = EstimatorParams()
     if args.components is not None:
         params = params.replace(max_components=args.components)
     if args.robust:
         params = params.replace(robust=True)
-    fields = {f.name: f for f in dataclasses.fields(EstimatorParams)}
-    for item in args.param:
-        name, sep, value = item.partition("=")
-        if not sep or name not in fields:
-            raise SystemExit(f"peerfix: error: --param {item!r}: expected NAME=VALUE with NAME one of {', '.join(fields)}")
-        kind = type(getattr(params, name))
-        try:
-            parsed = (value.lower() in ("1", "true", "yes", "on")) if kind is bool else kind(value)
-        except ValueError:
-            raise SystemExit(f"peerfix: error: --param {name}: {value!r} is not a {kind.__name__}")
-        params = params.replace(**{name: parsed})
+    params = params.replace(**dict(param_overrides(args.param)))
     if params.max_components < 1:
         raise SystemExit("peerfix: error: --components must be at least 1")
     if params.robust:
