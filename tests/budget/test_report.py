@@ -110,6 +110,8 @@ def test_figures_hang_together(quick):
         assert row["calls"] == doc[f"update_calls_{kind}"] >= 20, kind  # each headline bucket its share first
         assert (row["cycles_median"], row["cycles_max"]) == (doc[f"update_cycles_median_{kind}"],
                                                            doc[f"update_cycles_max_{kind}"]), kind
+        assert row["cycles_p90"] == doc[f"update_cycles_p90_{kind}"]
+        assert row["cycles_median"] <= row["cycles_p90"] <= row["cycles_max"], kind
     assert doc["update_calls"] == headline[0]["calls"] + headline[1]["calls"]
     assert doc["update_cycles_max"] == max(headline[0]["cycles_max"], headline[1]["cycles_max"])
     # the caller-owned structs as the host's cffi lays them out (the layout test checks every field)
@@ -362,3 +364,20 @@ def test_command_param_labels_the_settings_and_checks_no_budget(monkeypatch):
 def test_command_param_refuses_an_unknown_setting():
     with pytest.raises(SystemExit, match="--param 'nonsense=1': expected NAME=VALUE"):
         run_cli(["budget", "--quick", "--param", "nonsense=1"])
+
+
+def test_p90_is_numpys_percentile():
+    """The cycle p90 of the report is the 90th percentile as numpy computes it
+    (linear interpolation between order statistics, numpy.percentile's default), to whole cycles."""
+    from types import SimpleNamespace
+
+    import numpy as np
+    from peerfix.budget.report import _stats
+
+    rng = np.random.default_rng(3)
+    for n in (1, 2, 7, 104):
+        cycles = rng.integers(1_000, 400_000, size=n)
+        rows = [SimpleNamespace(instructions=int(c) // 2, cycles=int(c), stack_bytes=64) for c in cycles]
+        st = _stats(rows, 64.0)
+        assert st["cycles_p90"] == pytest.approx(np.percentile(cycles, 90), abs=0.5), n
+        assert st["cycles_median"] <= st["cycles_p90"] <= st["cycles_max"]
