@@ -12,7 +12,7 @@ after 1, 2, ... broadcasts in update order (the inbox sorted as the core
 sorts it, then truncated): what each neighbour step adds.
 
     python tools/profile_update.py [--target cortex-m4] [--opt O2] [--quick] [--top 25] [--steps 3]
-                                   [--prior any|acquisition|tracking]
+                                   [--prior any|acquisition|tracking] [--param NAME=VALUE ...]
 """
 
 from __future__ import annotations
@@ -22,8 +22,9 @@ import dataclasses
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
-from peerfix.budget.capture import capture, from_tracking_prior, is_headline
+from peerfix.budget.capture import RUNS, capture, from_tracking_prior, is_headline
 from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
+from peerfix.commands.common import param_overrides
 from peerfix.core._pfx import ffi, lib
 
 
@@ -81,12 +82,16 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true", help="the quick capture (20 headline calls)")
     ap.add_argument("--top", type=int, default=25)
     ap.add_argument("--steps", type=int, default=0, metavar="N", help="per-step cycles of the N slowest calls")
+    ap.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
+                    help="an estimator setting of the captured runs (as in `peerfix budget --param`)")
     ap.add_argument("--prior", default="any", choices=("any", "acquisition", "tracking"),
                     help="only the updates from the uniform prior (acquisition) or from a tracking prior")
     args = ap.parse_args()
 
     result = build(TargetConfig(args.target, args.opt))
-    sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)))
+    overrides = param_overrides(args.param)
+    runs = tuple(dataclasses.replace(r, overrides=overrides) for r in RUNS)
+    sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)), runs=runs)
     calls = [c for c in sel.calls["pfx_node_update"] if is_headline(c)
              and (args.prior == "any" or from_tracking_prior(c) == (args.prior == "tracking"))]
     rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))
