@@ -36,7 +36,7 @@ SCALE = "open-field-1000"
 ORDER = ["blocked-share", "robust-tuning", "robust-ring", "robust-spread", "robust-spread-heldout", "blocked-engines",
          "packet-loss", "density", "anchors",
          "convergence", "convergence-loss",
-         "tempering", "components", SCALE]
+         "tempering", "components", "acquisition-cost", SCALE]
 OUT = ROOT / "build" / "studies"
 DOC = ROOT / "docs" / "studies.md"
 
@@ -188,6 +188,22 @@ def generic(spec, results, lines, headline):
     lines += table(by + ["networks", "within 1 m", "worst network", "p90 error (m)", "RMSE within 1 m (m)",
                          "95 % coverage", "run s/network"], body)
     lines += ["", "p90 error and RMSE within 1 m pooled over all agents of all networks.", ""]
+
+
+def acquisition_cost(spec, results, lines, headline):
+    generic(spec, results, lines, headline)
+    rows = summarise(results, ["preset", "product_gate_sigma2", "merge_gate_sigma2", "iterations"])
+    for preset in dict.fromkeys(r["preset"] for r in rows):
+        for it in sorted({r["iterations"] for r in rows}):
+            at = {(r["product_gate_sigma2"], r["merge_gate_sigma2"]): r for r in rows
+                  if r["preset"] == preset and r["iterations"] == it}
+            if (16.0, 9.0) in at and (9.0, 9.0) in at:
+                a, b = at[(16.0, 9.0)], at[(9.0, 9.0)]
+                headline.append((
+                    f"{preset}, {it} iterations, product gate 4 sigma against 3 sigma (the default; merge gate 9): "
+                    f"within 1 m {f3(a['fraction_within_1m'])} / {f3(b['fraction_within_1m'])}, "
+                    f"p90 {f3(a['error_p90_m_pooled'])} / {f3(b['error_p90_m_pooled'])} m, "
+                    f"95 % coverage {f3(a['coverage_95'])} / {f3(b['coverage_95'])}", command(spec.name)))
 
 
 def _blocked_over_los(rows, keys):
@@ -415,6 +431,7 @@ SECTIONS = {
     "robust-spread-heldout": robust_spread,
     "blocked-engines": blocked_engines,
     "tempering": tempering,
+    "acquisition-cost": acquisition_cost,
     SCALE: scale,
 }
 
