@@ -200,7 +200,7 @@ def acquisition_cost(spec, results, lines, headline):
             if (16.0, 9.0) in at and (9.0, 9.0) in at:
                 a, b = at[(16.0, 9.0)], at[(9.0, 9.0)]
                 headline.append((
-                    f"{preset}, {it} iterations, product gate 4 sigma against 3 sigma (the default; merge gate 9): "
+                    f"{preset}, {it} iterations, product gate 4 sigma (the default) against 3 sigma (merge gate 9): "
                     f"within 1 m {f3(a['fraction_within_1m'])} / {f3(b['fraction_within_1m'])}, "
                     f"p90 {f3(a['error_p90_m_pooled'])} / {f3(b['error_p90_m_pooled'])} m, "
                     f"95 % coverage {f3(a['coverage_95'])} / {f3(b['coverage_95'])}", command(spec.name)))

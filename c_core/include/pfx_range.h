@@ -58,7 +58,7 @@ typedef struct {
     pfx_frac_q30_t blocked_weight;      /* robust likelihood share; 0 = off [0, 1) */
     pfx_len_q10_t blocked_bias;         /* mean bias of a blocked range [0, max_range] */
     pfx_len_q10_t max_range;            /* a range above this is PFX_ERR_RANGE [1 LSB, 16384 m] */
-    pfx_ratio_q16_t product_gate;       /* 9.0: a pair whose ring passes farther than sqrt(gate) upper-bound
+    pfx_ratio_q16_t product_gate;       /* 16.0: a pair whose ring passes farther than sqrt(gate) upper-bound
                                            sigmas from the component is not formed; a compact product whose
                                            first squared normalised innovation exceeds it keeps the one-step
                                            update [0 = off, 32768) */

@@ -36,7 +36,7 @@ void pfx_params_default(pfx_params_t *p)
     p->blocked_weight = 0;
     p->blocked_bias = 1024;                  /* 1.0 m */
     p->max_range = 1024000;                  /* 1000 m */
-    p->product_gate = 9 << 16;               /* squared normalised innovation (3 sigma) */
+    p->product_gate = 16 << 16;              /* squared normalised innovation (4 sigma) */
     p->directional_spread = 0u;              /* rings widened by lambda_max of the neighbour */
 }
 

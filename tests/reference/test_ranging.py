@@ -180,15 +180,12 @@ def test_multiply_by_rings_uses_the_products_gate():
     # 0.92 m off the ring: beyond the product gate (4 sigma of the innovation,
     # s = h'Ph + var = 0.0522 m^2: 0.914 m) but inside the ring gate (4 upper-
     # bound sigmas, lambda_max + var = 0.0541 m^2: 0.931 m), so the product is
-    # formed and keeps the one-step update.  The geometry is set for a 4-sigma gate, so the
-    # test runs at 16 (the default is 9); only the mechanism is under test here.
-    params = PARAMS.replace(product_gate_sigma2=16.0)
+    # formed and keeps the one-step update.
     rings = Rings(np.zeros(1), np.zeros((1, 2)), np.array([rho + 0.92]), np.array([NEAR_LINEAR["var"]]))
     one_step = compact_update(belief.mean, belief.cov, rings.centre, rings.radius, rings.var, 1)
-    out = multiply_by_rings(belief, rings, params)
+    out = multiply_by_rings(belief, rings, PARAMS)
     np.testing.assert_array_equal(out.mean, one_step[0])
     assert out.logw[0] == one_step[2][0]
-    assert len(multiply_by_rings(belief, rings, PARAMS)) == 0  # at the default 3 sigma the pair is not formed
     ungated = multiply_by_rings(belief, rings, PARAMS.replace(product_gate_sigma2=0.0))
     assert not np.allclose(ungated.mean, one_step[0], rtol=0, atol=1e-4)
 

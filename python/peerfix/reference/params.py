@@ -55,23 +55,18 @@ class EstimatorParams:
     iekf_iterations: int = 3
     """Relinearisations of the compact (iterated extended Kalman) update."""
 
-    product_gate_sigma2: float = 9.0
-    """Gate of a component-ring pair, in squared sigmas (3 sigma; 0 = off).
+    product_gate_sigma2: float = 16.0
+    """Gate of a component-ring pair, in squared sigmas (4 sigma; 0 = off).
     Ring gate: a pair whose ring passes farther than that from the component
     mean, (rho - r)^2 > gate (s^2 + lambda_max(P)) with the pair's largest
     possible innovation variance, is not formed (ranging.ring_gate): its
-    weight is below e^-4.5 of an on-ring pair.  Product gate: a compact product
+    weight is below e^-8 of an on-ring pair.  Product gate: a compact product
     whose squared normalised innovation at the first linearisation exceeds it
     is not relinearised (it keeps the one-step update and its weight).  Both
-    save the tag work on products of little weight.  3 rather than 4 sigma:
-    the slowest acquisition on the tag falls from 331 646 to 233 389 cycles
-    (`peerfix budget --param product_gate_sigma2=16`) and the open field and
-    mine drift keep their accuracy (campaigns/acquisition-cost.toml, 80
-    networks each, docs/studies.md: open field within 1 m 0.991 / 0.992 at
-    4 / 8 iterations and p90 0.148 / 0.142 m either way; mine drift within
-    1 m 0.660 -> 0.666 and p90 2.09 -> 2.03 m at 4 iterations).  The cold
-    store without the robust likelihood (racks block most paths) loses:
-    within 1 m 0.575 -> 0.552; the robust preset keeps 16."""
+    save the tag work on products that pruning drops.  3 sigma (9) would
+    make the slowest acquisition on the tag 30 % faster at the same accuracy
+    on static networks, but loses moving tags (DEVELOPERS.md, "What the
+    settings cost on the tag")."""
 
     merge_gate_sigma2: float = 9.0
     """Every reduction first folds components this close (squared Mahalanobis
@@ -133,8 +128,8 @@ class EstimatorParams:
 # sight, where the working mixture stays near one mode; with two rings per range
 # the update needs the room the speed settings cut away.  Measured by
 # campaigns/robust-tuning.toml (docs/studies.md): at 20 % blocked, 8 iterations,
-# the pooled p90 error falls from 0.66 m to 0.38 m.  Broadcast inflation 1 and
-# 0.5 m arcs lower it a little more (0.35 m) but are left out: 95 % coverage
+# the pooled p90 error falls from 0.64 m to 0.38 m.  Broadcast inflation 1 and
+# 0.5 m arcs lower it a little more (0.34 m) but are left out: 95 % coverage
 # drops from 0.85 to 0.70 and the worst network from 0.93 to 0.84 within 1 m.
 # Moving the blocked ring (robust_ring_scale, campaigns/robust-ring.toml) is
 # left at 1: no scale gains on all 80 networks of that study.  Rings widened by a
@@ -142,14 +137,11 @@ class EstimatorParams:
 # campaigns/robust-spread.toml, fixed core, 80 networks) lower the ratio of
 # blocked to line-of-sight p90 at 20 iterations from 2.11 to 1.93 (held-out
 # seeds 200-279: 2.09 to 1.99); the cost is 95 % coverage at 20 % blocked (0.89
-# to 0.81).  The preset keeps the 4-sigma product gate it was measured with
-# (the defaults' 3 sigma gives 1.98 for 1.93 at 20 iterations).  Defaults
-# with the robust likelihood off are untouched.
+# to 0.81).  Defaults with the robust likelihood off are untouched.
 ROBUST_PRESET: dict[str, float | int] = {
     "working_cap": 16,  # = PFX_MAX_WORKING: both rings of a range survive between neighbours
     "merge_gate_sigma2": 1.0,  # fold only near-identical components: keep the LOS and blocked hypotheses apart
     "directional_spread": True,  # a weakly placed neighbour widens its ring only along its long axis
-    "product_gate_sigma2": 16.0,  # two rings per range: keep the 4-sigma gate the preset was measured with
 }
 
 ROBUST_ITERATIONS = 20
