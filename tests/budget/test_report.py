@@ -305,7 +305,9 @@ def test_robust_preset_runs_replay_bit_exact_with_its_settings():
     assert doc["mismatched_calls"] == 0 and doc["bit_exact_calls"] == len(calls)
 
 
-def test_command_robust_reports_the_settings_and_checks_no_budget(monkeypatch):
+def _budget_on_robust_calls(monkeypatch, argv):
+    """`peerfix budget ARGV` replaying the few robust calls in place of a capture: (status,
+    report, the keywords the command passed to capture)."""
     import peerfix.budget.report as report
 
     _, calls = _robust_calls()
@@ -316,8 +318,14 @@ def test_command_robust_reports_the_settings_and_checks_no_budget(monkeypatch):
         return calls
 
     monkeypatch.setattr(report, "capture", fake_capture)
-    status, stdout = run_cli(["budget", "--robust", "--quick", "--json"])  # the repository's budget.toml exists
-    doc = json.loads(stdout)
+    status, stdout = run_cli(["budget", *argv])  # the repository's budget.toml exists
+    return status, json.loads(stdout), seen
+
+
+def test_command_robust_reports_the_settings_and_checks_no_budget(monkeypatch):
+    import peerfix.budget.report as report
+
+    status, doc, seen = _budget_on_robust_calls(monkeypatch, ["--robust", "--quick", "--json"])
     assert status == 0
     assert seen["runs"] == report.ROBUST_RUNS
     assert doc["settings"] == "robust preset"
@@ -343,17 +351,8 @@ def test_param_overrides_reach_the_captured_node_state():
 def test_command_param_labels_the_settings_and_checks_no_budget(monkeypatch):
     import peerfix.budget.report as report
 
-    _, calls = _robust_calls()
-    seen = {}
-
-    def fake_capture(*args, **kw):
-        seen.update(kw)
-        return calls
-
-    monkeypatch.setattr(report, "capture", fake_capture)
-    status, stdout = run_cli(["budget", "--quick", "--json", "--param", "candidate_cap=32",
-                              "--param", "ring_arc_spacing_m=1.5"])
-    doc = json.loads(stdout)
+    status, doc, seen = _budget_on_robust_calls(
+        monkeypatch, ["--quick", "--json", "--param", "candidate_cap=32", "--param", "ring_arc_spacing_m=1.5"])
     assert status == 0
     assert all(r.overrides == (("candidate_cap", 32), ("ring_arc_spacing_m", 1.5)) for r in seen["runs"])
     assert [r.preset for r in seen["runs"]] == [r.preset for r in report.RUNS]
