@@ -155,12 +155,12 @@ pfx_status_t pfx_fixed_sqrt_q(uint32_t x, unsigned frac_in, unsigned frac_out, u
 
 /* ---- log2 -------------------------------------------------------------------
  * log2_u32 / log2_u64: *out = log2(x) in Q16 for x > 0.  Integer part from
- *   the leading-zero count; fraction from a 66-entry Q24 table of
- *   log2(1 + k/64) with Newton's three-point formula on the next 17 bits,
- *   then rounded to Q16.  Interpolation error <= 0.05 LSB
- *   (h^3 / (9 sqrt 3) * max|f'''|), table and the three roundings < 0.01 LSB,
- *   final rounding 0.5 LSB: bound 0.56 LSB of Q16.  Measured over every
- *   32-bit mantissa: 0.554 LSB (x = 2160459007).
+ *   the leading-zero count; fraction from a 257-entry Q24 table of
+ *   log2(1 + k/256) with linear interpolation on the next 15 bits (32-bit
+ *   multiply only), then rounded to Q16.  Interpolation error <= 0.18 LSB
+ *   (h^2/8 * max|f''|), table and truncation < 0.02 LSB, final rounding
+ *   0.5 LSB: bound 0.70 LSB of Q16.  Measured over every 32-bit mantissa:
+ *   0.689 LSB (x = 2151500543).
  *   Powers of two are exact.  log2_u64 keeps the top 32 significant bits.
  *   PFX_ERR_DOMAIN: x == 0 (*out = INT32_MIN, the saturated -infinity).
  * log2_q: log2(x / 2^frac_bits) = log2_u32(x) - frac_bits * 2^16, exact
@@ -172,8 +172,8 @@ pfx_status_t pfx_fixed_log2_q(uint32_t x, unsigned frac_bits, pfx_log2_q16_t *ou
 
 /* ---- exp2 -------------------------------------------------------------------
  * All three start from the same mantissa: x = n + f (n = floor, f in [0, 1)
- * as 16 bits); 2^f = (1 + T[f >> 10]) * (1 + e(f & 1023)) with a 64-entry Q32
- * table T and a degree-5 polynomial e, formed in Q63 (relative error
+ * as 16 bits); 2^f = (1 + T[f >> 8]) * (1 + e(f & 255)) with a 256-entry Q32
+ * table T and a degree-4 polynomial e, formed in Q63 (relative error
  * < 2e-10), then rounded once to the output.
  * exp2_frac_sat: round(2^x * 2^30) for x <= 0, the common case (weights from
  *   log2 weights).  Bound: 0.5 LSB rounding + < 0.25 LSB mantissa error

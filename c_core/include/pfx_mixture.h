@@ -114,7 +114,7 @@ pfx_status_t pfx_mixture_check(const pfx_component_t *c, uint32_t n);
 pfx_area_q20_t pfx_mixture_max_eig(const pfx_component_t *c);
 
 /* log-sum-exp normalising in log2: l -= max + log2(sum 2^(l - max)).
- * exp2 terms in Q30 (<= 0.57 LSB each), log2 of the sum 0.56 LSB: the
+ * exp2 terms in Q30 (<= 0.57 LSB each), log2 of the sum 0.70 LSB: the
  * normalised weights are within 1 LSB (Q16) of exact.  n = 0 is a no-op. */
 pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n);
 

@@ -24,32 +24,87 @@
 /* tables                                                                     */
 /* ------------------------------------------------------------------------ */
 
-/* round(log2(1 + k/64) * 2^24), k = 0..65 (Q24; entry 64 is 2^24, entry 65 lies past
- * [1, 2) and serves the second difference of the last interval). */
-static const uint32_t k_log2_table_q24[66] = {
-    0u, 375270u, 744810u, 1108793u, 1467383u, 1820738u, 2169009u, 2512340u,
-    2850868u, 3184728u, 3514044u, 3838941u, 4159533u, 4475935u, 4788255u, 5096595u,
-    5401057u, 5701737u, 5998727u, 6292118u, 6581994u, 6868440u, 7151536u, 7431359u,
-    7707984u, 7981483u, 8251926u, 8519380u, 8783912u, 9045584u, 9304457u, 9560591u,
-    9814042u, 10064867u, 10313120u, 10558852u, 10802114u, 11042956u, 11281425u, 11517568u,
-    11751428u, 11983051u, 12212479u, 12439752u, 12664911u, 12887994u, 13109041u, 13328087u,
-    13545168u, 13760320u, 13973576u, 14184969u, 14394532u, 14602297u, 14808293u, 15012551u,
-    15215099u, 15415967u, 15615181u, 15812769u, 16008758u, 16203172u, 16396036u, 16587377u,
-    16777216u, 16965578u
+/* round(log2(1 + k/256) * 2^24), k = 0..256 (Q24; last entry 2^24). */
+static const uint32_t k_log2_table_q24[257] = {
+    0u, 94364u, 188362u, 281996u, 375270u, 468185u, 560745u, 652952u,
+    744810u, 836320u, 927485u, 1018309u, 1108793u, 1198939u, 1288752u, 1378232u,
+    1467383u, 1556207u, 1644705u, 1732882u, 1820738u, 1908277u, 1995500u, 2082410u,
+    2169009u, 2255299u, 2341283u, 2426963u, 2512340u, 2597417u, 2682196u, 2766679u,
+    2850868u, 2934766u, 3018374u, 3101694u, 3184728u, 3267478u, 3349946u, 3432134u,
+    3514044u, 3595678u, 3677038u, 3758124u, 3838941u, 3919488u, 3999768u, 4079782u,
+    4159533u, 4239023u, 4318251u, 4397222u, 4475935u, 4554394u, 4632599u, 4710552u,
+    4788255u, 4865709u, 4942916u, 5019878u, 5096595u, 5173071u, 5249305u, 5325300u,
+    5401057u, 5476578u, 5551864u, 5626916u, 5701737u, 5776327u, 5850688u, 5924821u,
+    5998727u, 6072409u, 6145867u, 6219103u, 6292118u, 6364913u, 6437490u, 6509850u,
+    6581994u, 6653924u, 6725641u, 6797146u, 6868440u, 6939525u, 7010402u, 7081072u,
+    7151536u, 7221795u, 7291852u, 7361706u, 7431359u, 7500812u, 7570066u, 7639123u,
+    7707984u, 7776649u, 7845119u, 7913397u, 7981483u, 8049377u, 8117082u, 8184598u,
+    8251926u, 8319067u, 8386022u, 8452793u, 8519380u, 8585785u, 8652008u, 8718050u,
+    8783912u, 8849596u, 8915102u, 8980431u, 9045584u, 9110562u, 9175366u, 9239998u,
+    9304457u, 9368745u, 9432863u, 9496811u, 9560591u, 9624203u, 9687648u, 9750928u,
+    9814042u, 9876993u, 9939780u, 10002404u, 10064867u, 10127170u, 10189312u, 10251295u,
+    10313120u, 10374787u, 10436298u, 10497652u, 10558852u, 10619897u, 10680789u, 10741528u,
+    10802114u, 10862550u, 10922835u, 10982970u, 11042956u, 11102794u, 11162484u, 11222028u,
+    11281425u, 11340677u, 11399784u, 11458748u, 11517568u, 11576245u, 11634780u, 11693175u,
+    11751428u, 11809542u, 11867517u, 11925353u, 11983051u, 12040612u, 12098037u, 12155325u,
+    12212479u, 12269497u, 12326382u, 12383133u, 12439752u, 12496238u, 12552593u, 12608817u,
+    12664911u, 12720875u, 12776710u, 12832416u, 12887994u, 12943445u, 12998770u, 13053968u,
+    13109041u, 13163988u, 13218811u, 13273511u, 13328087u, 13382540u, 13436871u, 13491080u,
+    13545168u, 13599135u, 13652983u, 13706711u, 13760320u, 13813810u, 13867183u, 13920438u,
+    13973576u, 14026597u, 14079503u, 14132294u, 14184969u, 14237530u, 14289978u, 14342312u,
+    14394532u, 14446641u, 14498638u, 14550523u, 14602297u, 14653961u, 14705514u, 14756958u,
+    14808293u, 14859519u, 14910637u, 14961648u, 15012551u, 15063347u, 15114037u, 15164621u,
+    15215099u, 15265473u, 15315742u, 15365906u, 15415967u, 15465925u, 15515779u, 15565531u,
+    15615181u, 15664730u, 15714177u, 15763523u, 15812769u, 15861915u, 15910962u, 15959909u,
+    16008758u, 16057508u, 16106160u, 16154714u, 16203172u, 16251532u, 16299796u, 16347964u,
+    16396036u, 16444013u, 16491896u, 16539683u, 16587377u, 16634976u, 16682482u, 16729896u,
+    16777216u
 };
-/* round((2^(k/64) - 1) * 2^32), k = 0..63 (Q32 fraction above 1). */
-static const uint32_t k_exp2_table_q32[64] = {
-    0x00000000u, 0x02C9A3E7u, 0x059B0D31u, 0x08745187u, 0x0B5586D0u, 0x0E3EC32Du,
-    0x11301D01u, 0x1429AAEBu, 0x172B83C8u, 0x1A35BEB7u, 0x1D487317u, 0x2063B886u,
-    0x2387A6E7u, 0x26B4565Eu, 0x29E9DF52u, 0x2D285A6Eu, 0x306FE0A3u, 0x33C08B26u,
-    0x371A7374u, 0x3A7DB34Eu, 0x3DEA64C1u, 0x4160A21Fu, 0x44E08606u, 0x486A2B5Cu,
-    0x4BFDAD53u, 0x4F9B276Au, 0x5342B56Au, 0x56F4736Bu, 0x5AB07DD5u, 0x5E76F15Bu,
-    0x6247EB04u, 0x66238825u, 0x6A09E668u, 0x6DFB23C6u, 0x71F75E8Fu, 0x75FEB564u,
-    0x7A11473Fu, 0x7E2F336Du, 0x82589995u, 0x868D99B4u, 0x8ACE5423u, 0x8F1AE991u,
-    0x93737B0Du, 0x97D829FEu, 0x9C49182Au, 0xA0C667B6u, 0xA5503B24u, 0xA9E6B558u,
-    0xAE89F996u, 0xB33A2B85u, 0xB7F76F30u, 0xBCC1E905u, 0xC199BDD8u, 0xC67F12E5u,
-    0xCB720DCFu, 0xD072D4A0u, 0xD5818DD0u, 0xDA9E603Eu, 0xDFC97338u, 0xE502EE79u,
-    0xEA4AFA2Au, 0xEFA1BEE6u, 0xF50765B7u, 0xFA7C181Au
+/* round((2^(k/256) - 1) * 2^32), k = 0..255 (Q32 fraction above 1). */
+static const uint32_t k_exp2_table_q32[256] = {
+    0x00000000u, 0x00B1AFA6u, 0x0163DAA0u, 0x02168144u, 0x02C9A3E7u, 0x037D42E1u,
+    0x04315E87u, 0x04E5F72Fu, 0x059B0D31u, 0x0650A0E4u, 0x0706B29Eu, 0x07BD42B7u,
+    0x08745187u, 0x092BDF66u, 0x09E3ECACu, 0x0A9C79B2u, 0x0B5586D0u, 0x0C0F145Eu,
+    0x0CC922B7u, 0x0D83B234u, 0x0E3EC32Du, 0x0EFA55FEu, 0x0FB66B00u, 0x1073028Du,
+    0x11301D01u, 0x11EDBAB6u, 0x12ABDC07u, 0x136A814Fu, 0x1429AAEBu, 0x14E95935u,
+    0x15A98C8Au, 0x166A4547u, 0x172B83C8u, 0x17ED4869u, 0x18AF9389u, 0x19726583u,
+    0x1A35BEB7u, 0x1AF99F81u, 0x1BBE0840u, 0x1C82F953u, 0x1D487317u, 0x1E0E75EBu,
+    0x1ED50230u, 0x1F9C1844u, 0x2063B886u, 0x212BE358u, 0x21F49918u, 0x22BDDA28u,
+    0x2387A6E7u, 0x2451FFB8u, 0x251CE4FBu, 0x25E85712u, 0x26B4565Eu, 0x2780E342u,
+    0x284DFE1Fu, 0x291BA759u, 0x29E9DF52u, 0x2AB8A66Du, 0x2B87FD0Eu, 0x2C57E397u,
+    0x2D285A6Eu, 0x2DF961F6u, 0x2ECAFA94u, 0x2F9D24ACu, 0x306FE0A3u, 0x31432EDFu,
+    0x32170FC5u, 0x32EB83BBu, 0x33C08B26u, 0x3496266Eu, 0x356C55F9u, 0x36431A2Eu,
+    0x371A7374u, 0x37F26232u, 0x38CAE6D0u, 0x39A401B7u, 0x3A7DB34Eu, 0x3B57FBFFu,
+    0x3C32DC31u, 0x3D0E544Fu, 0x3DEA64C1u, 0x3EC70DF2u, 0x3FA4504Bu, 0x40822C36u,
+    0x4160A21Fu, 0x423FB271u, 0x431F5D95u, 0x43FFA3F8u, 0x44E08606u, 0x45C2042Au,
+    0x46A41ED2u, 0x4786D669u, 0x486A2B5Cu, 0x494E1E19u, 0x4A32AF0Du, 0x4B17DEA7u,
+    0x4BFDAD53u, 0x4CE41B81u, 0x4DCB29A0u, 0x4EB2D81Eu, 0x4F9B276Au, 0x508417F4u,
+    0x516DAA2Du, 0x5257DE84u, 0x5342B56Au, 0x542E2F4Fu, 0x551A4CA6u, 0x56070DDFu,
+    0x56F4736Bu, 0x57E27DBEu, 0x58D12D49u, 0x59C08280u, 0x5AB07DD5u, 0x5BA11FBBu,
+    0x5C9268A6u, 0x5D84590Au, 0x5E76F15Bu, 0x5F6A320Eu, 0x605E1B97u, 0x6152AE6Du,
+    0x6247EB04u, 0x633DD1D2u, 0x6434634Du, 0x652B9FECu, 0x66238825u, 0x671C1C71u,
+    0x68155D45u, 0x690F4B1Au, 0x6A09E668u, 0x6B052FA7u, 0x6C012751u, 0x6CFDCDDDu,
+    0x6DFB23C6u, 0x6EF92986u, 0x6FF7DF95u, 0x70F7466Fu, 0x71F75E8Fu, 0x72F8286Fu,
+    0x73F9A48Au, 0x74FBD35Du, 0x75FEB564u, 0x77024B1Bu, 0x780694FEu, 0x790B938Bu,
+    0x7A11473Fu, 0x7B17B097u, 0x7C1ED013u, 0x7D26A630u, 0x7E2F336Du, 0x7F387849u,
+    0x80427544u, 0x814D2ADDu, 0x82589995u, 0x8364C1ECu, 0x8471A462u, 0x857F417Au,
+    0x868D99B4u, 0x879CAD93u, 0x88AC7D99u, 0x89BD0A48u, 0x8ACE5423u, 0x8BE05BADu,
+    0x8CF3216Bu, 0x8E06A5E1u, 0x8F1AE991u, 0x902FED03u, 0x9145B0B9u, 0x925C353Bu,
+    0x93737B0Du, 0x948B82B6u, 0x95A44CBDu, 0x96BDD9A7u, 0x97D829FEu, 0x98F33E48u,
+    0x9A0F170Du, 0x9B2BB4D5u, 0x9C49182Au, 0x9D674195u, 0x9E86319Eu, 0x9FA5E8D0u,
+    0xA0C667B6u, 0xA1E7AED9u, 0xA309BEC5u, 0xA42C9804u, 0xA5503B24u, 0xA674A8AFu,
+    0xA799E133u, 0xA8BFE53Cu, 0xA9E6B558u, 0xAB0E5213u, 0xAC36BBFDu, 0xAD5FF3A4u,
+    0xAE89F996u, 0xAFB4CE62u, 0xB0E07299u, 0xB20CE6CAu, 0xB33A2B85u, 0xB468415Bu,
+    0xB59728DEu, 0xB6C6E29Fu, 0xB7F76F30u, 0xB928CF22u, 0xBA5B030Au, 0xBB8E0B7Au,
+    0xBCC1E905u, 0xBDF69C3Fu, 0xBF2C25BDu, 0xC0628614u, 0xC199BDD8u, 0xC2D1CDA0u,
+    0xC40AB600u, 0xC5447790u, 0xC67F12E5u, 0xC7BA8899u, 0xC8F6D940u, 0xCA340575u,
+    0xCB720DCFu, 0xCCB0F2E7u, 0xCDF0B556u, 0xCF3155B6u, 0xD072D4A0u, 0xD1B532B1u,
+    0xD2F87081u, 0xD43C8EADu, 0xD5818DD0u, 0xD6C76E86u, 0xD80E316Du, 0xD955D720u,
+    0xDA9E603Eu, 0xDBE7CD64u, 0xDD321F30u, 0xDE7D5642u, 0xDFC97338u, 0xE11676B2u,
+    0xE264614Fu, 0xE3B333B1u, 0xE502EE79u, 0xE6539246u, 0xE7A51FBCu, 0xE8F7977Du,
+    0xEA4AFA2Au, 0xEB9F4868u, 0xECF482D9u, 0xEE4AAA22u, 0xEFA1BEE6u, 0xF0F9C1CBu,
+    0xF252B377u, 0xF3AC948Eu, 0xF50765B7u, 0xF6632799u, 0xF7BFDADAu, 0xF91D8022u,
+    0xFA7C181Au, 0xFBDBA369u, 0xFD3C22B9u, 0xFE9D96B3u
 };
 /* round(2^15 / ((128.5 + i) / 256)), i = 0..127: 1/D seeds at the middle of
  * each of 128 intervals of D in [0.5, 1), Q15 (all < 2^16). */
@@ -68,14 +123,14 @@ static const uint16_t k_recip_seed_q15[128] = {
     35172u, 35026u, 34880u, 34735u, 34592u, 34450u, 34309u, 34169u, 34031u, 33893u,
     33757u, 33622u, 33487u, 33354u, 33222u, 33091u, 32961u, 32832u
 };
-/* e(t) = 2^x - 1 = x (C1 + x (C2 + x (C3 + x (C4 + x C5)))) for x = t / 2^16,
- * t in 0..1023, with C_n = ln2^n / n! in Q32 (rounded); the x^6 term is
- * < 2^-46 and left out. */
-#define PFX_EXP2_C1 UINT32_C(2977044472)
-#define PFX_EXP2_C2 UINT32_C(1031764991)
-#define PFX_EXP2_C3 UINT32_C(238388332)
-#define PFX_EXP2_C4 UINT32_C(41309550)
-#define PFX_EXP2_C5 UINT32_C(5726720)
+/* e(t) = 2^(t/2^16) - 1 for t in 0..255, in Q56:
+ * t*C1 + t^2*C2 + t^3*C3/2^16 + t^4*C4/2^32 with
+ * C1 = ln2 * 2^40, C2 = ln2^2/2 * 2^24, C3 = ln2^3/6 * 2^24, C4 = ln2^4/24 * 2^24
+ * (all rounded).  The t^5 term is < 2^-45 and left out. */
+#define PFX_EXP2_C1 UINT64_C(762123384786)
+#define PFX_EXP2_C2 UINT64_C(4030332)
+#define PFX_EXP2_C3 UINT64_C(931204)
+#define PFX_EXP2_C4 UINT64_C(161365)
 
 /* ------------------------------------------------------------------------ */
 /* internal helpers                                                           */
@@ -691,22 +746,16 @@ pfx_status_t pfx_fixed_sqrt_q(uint32_t x, unsigned frac_in, unsigned frac_out, u
 /* log2                                                                       */
 /* ------------------------------------------------------------------------ */
 
-/* log2(m / 2^31) in Q24 for m in [2^31, 2^32): interval k from the 6 bits
- * below the leading one, u the next 17 bits (Q17 within the interval), and
- * Newton's forward formula on three table entries:
- *   T[k] + u d1 + u (1 - u) d2 / 2,  d1 = T[k+1] - T[k],  d2 = 2 T[k+1] - T[k] - T[k+2]
- * (d2 > 0: log2 is concave).  d1 < 2^19 times u (Q17) is one 32 x 32 product;
- * the bow takes u in Q16 (w = u / 2): w (1 - w) < 2^30 in Q32, times d2 < 2^13
- * another.  Each term is rounded once. */
-static inline uint32_t log2_frac24(uint32_t m)
+/* log2(m / 2^31) in Q24 for m in [2^31, 2^32): interval k from the 8 bits
+ * below the leading one, linear interpolation on the next 15 bits.
+ * (diff < 2^17) * (r < 2^15) < 2^32: one 32-bit multiply. */
+static uint32_t log2_frac24(uint32_t m)
 {
-    uint32_t k = (m >> 25) & 0x3Fu;
-    uint32_t u = (m >> 8) & 0x1FFFFu;
-    uint32_t t0 = k_log2_table_q24[k], t1 = k_log2_table_q24[k + 1u], t2 = k_log2_table_q24[k + 2u];
-    uint64_t lin = ((uint64_t)(t1 - t0) * u + (UINT64_C(1) << 16)) >> 17;
-    uint32_t w = u >> 1;
-    uint64_t bow = ((uint64_t)(w * ((UINT32_C(1) << 16) - w)) * (2u * t1 - t0 - t2) + (UINT64_C(1) << 32)) >> 33;
-    return t0 + (uint32_t)lin + (uint32_t)bow;
+    uint32_t k = (m >> 23) & 0xFFu;
+    uint32_t r = (m >> 8) & 0x7FFFu;
+    uint32_t lo = k_log2_table_q24[k];
+    uint32_t diff = k_log2_table_q24[k + 1u] - lo;
+    return lo + ((diff * r + (UINT32_C(1) << 14)) >> 15);
 }
 
 /* n + log2(m / 2^31) in Q16, rounded once from Q24 (may carry into n). */
@@ -771,26 +820,23 @@ pfx_status_t pfx_fixed_log2_q(uint32_t x, unsigned frac_bits, pfx_log2_q16_t *ou
 /* ------------------------------------------------------------------------ */
 
 /* 2^(f / 2^16) in Q63 for f in [0, 2^16):
- * (1 + h) * (1 + e) = 1 + h + e + h*e with h = T[f >> 10] (Q32) and
- * e = e(f & 1023) (Q38, < 2^31.5).  Terms in Q63: h << 31, e << 25,
- * (h * e) >> 7; every partial product fits in 64 bits and the sum is below
- * 2^64 (2^f < 2 - 2^-17).  Error against 2^f: table 2^-33, e 2^-38 (its
- * Horner truncations, rounding and series), product truncation 2^-63:
- * below 2e-10 in all. */
+ * (1 + h) * (1 + e) = 1 + h + e + h*e with h = T[f >> 8] (Q32) and
+ * e = e(f & 255) (Q40, < 2^32).  Terms in Q63: h << 31, e << 23,
+ * (h * e) >> 9; every partial product fits in 64 bits and the sum is below
+ * 2^64 (2^f < 2 - 2^-17).  Error against 2^f: table 2^-33, e 2^-41 plus its
+ * truncated series, product truncation 2^-63: below 2e-10 in all. */
 static uint64_t exp2_mant_q63(uint32_t f)
 {
-    uint64_t h = k_exp2_table_q32[f >> 10];
-    uint32_t t = f & 0x3FFu;
-    uint32_t e38;
-    /* Horner in Q32: each step adds C_n to x times the sum so far, x s = t s / 2^16
-     * (t s < 2^42, truncated); every sum stays below 2^32 (C1 + x C2 < 0.70). */
-    uint32_t sum = PFX_EXP2_C5;
-    sum = PFX_EXP2_C4 + (uint32_t)(((uint64_t)t * sum) >> 16);
-    sum = PFX_EXP2_C3 + (uint32_t)(((uint64_t)t * sum) >> 16);
-    sum = PFX_EXP2_C2 + (uint32_t)(((uint64_t)t * sum) >> 16);
-    sum = PFX_EXP2_C1 + (uint32_t)(((uint64_t)t * sum) >> 16);
-    e38 = (uint32_t)(((uint64_t)t * sum + (UINT64_C(1) << 9)) >> 10); /* e = x sum in Q38, < 2^31.5 */
-    return (UINT64_C(1) << 63) + (h << 31) + ((uint64_t)e38 << 25) + (((uint64_t)(uint32_t)h * e38) >> 7);
+    uint64_t h = k_exp2_table_q32[f >> 8];
+    uint32_t t = f & 0xFFu;
+    uint32_t t2 = t * t;   /* < 2^16 */
+    uint32_t t3 = t2 * t;  /* < 2^24 */
+    uint32_t t4 = t2 * t2; /* < 2^32 */
+    uint64_t e56 = (uint64_t)t * PFX_EXP2_C1 + (uint64_t)t2 * PFX_EXP2_C2 +
+                   (((uint64_t)t3 * PFX_EXP2_C3 + (UINT64_C(1) << 15)) >> 16) +
+                   (((uint64_t)t4 * PFX_EXP2_C4 + (UINT64_C(1) << 31)) >> 32);
+    uint64_t e40 = (e56 + (UINT64_C(1) << 15)) >> 16;
+    return (UINT64_C(1) << 63) + (h << 31) + (e40 << 23) + (((uint64_t)(uint32_t)h * (uint32_t)e40) >> 9);
 }
 
 /* round_shift_u64(m, s) for 33 <= s <= 65 from the high word alone:

@@ -501,7 +501,7 @@ static int32_t max_log2w(const pfx_component_t *c, uint32_t n)
 }
 
 /* Scaling: Q16 log2 in, Q30 terms (each <= 2^30, n <= 64: sum < 2^37).
- * log2(sum / 2^30) from pfx_fixed_log2_u64 (0.56 LSB).  Saturating. */
+ * log2(sum / 2^30) from pfx_fixed_log2_u64 (0.70 LSB).  Saturating. */
 pfx_status_t pfx_mixture_normalise(pfx_component_t *c, uint32_t n)
 {
     uint32_t k;
@@ -1069,7 +1069,7 @@ static uint32_t pair_cost(const pfx_component_t *c, const pfx_mixture_scratch_t 
  * (monotone, 2^-24 relative resolution: near-equal costs may tie, and a tie
  * goes to the first pair in row-major order).  Merges through moments_core
  * (see there); merged means are stored in Q10 before they meet the next
- * pair.  Output log2 weights from log2 of the Q40 weights (0.56 LSB), then
+ * pair.  Output log2 weights from log2 of the Q40 weights (0.70 LSB), then
  * normalised. */
 pfx_status_t pfx_mixture_runnalls(pfx_component_t *c, uint32_t *n, uint32_t cap, pfx_mixture_scratch_t *s)
 {

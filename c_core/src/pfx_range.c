@@ -240,7 +240,7 @@ typedef struct {
 /* Spacing 2 pi r stride / 256 = pi_q29 r stride >> 26 in Q20 (exact int64
  * product, one rounding); tangential std ratio * spacing (Q20), t2 its
  * square (Q20, rounded once), floored at var, saturated; log2 of the
- * spacing from pfx_fixed_log2_u64 (0.56 LSB), log2(1e-9) for a zero radius
+ * spacing from pfx_fixed_log2_u64 (0.70 LSB), log2(1e-9) for a zero radius
  * (the reference's floor).  The arc centres sit at max(r - t2 / (2r), 0)
  * (a straight arc's mass then lies on the ring): t2 * 2^10 / (2r) in Q20
  * through one reciprocal (relative error <= 2^-30). */

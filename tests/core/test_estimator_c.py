@@ -41,7 +41,7 @@ LN2 = math.log(2.0)
 MEAN_M = 0.0006
 # Gaussian product covariance: one rounding to Q20 after Q30 intermediates (measured 0.53 LSB).
 PRODUCT_COV_LSB = 2
-# Log weights of single products, nats: Q16 log2 (1.06e-5 nats per LSB), log2 0.56 LSB + a few roundings.
+# Log weights of single products, nats: Q16 log2 (1.06e-5 nats per LSB), log2 0.7 LSB + a few roundings.
 PRODUCT_LOGW = 1e-4
 # Compact (IEKF) covariance, relative to its largest entry: Q30 intermediates, unit vectors to ~2^-29
 # (Newton reciprocal square root), Q20 result; P - ph g^T cancels in the range direction (measured 1.4e-4).

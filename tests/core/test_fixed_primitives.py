@@ -32,16 +32,15 @@ PUBLIC_HEADER = ROOT / "c_core" / "include" / "peerfix.h"
 FIXED_HEADER = ROOT / "c_core" / "include" / "pfx_fixed.h"
 
 # --- tolerances, in LSB of the output ---------------------------------------
-# log2 (Q16): analytic bound 0.56 = three-point interpolation h^3/(9 sqrt 3)
-# * max|f'''| (0.05, h = 1/64) + table and the three roundings in Q24 (< 0.01)
-# + final rounding (0.5).  Exhaustive sweep of every 32-bit mantissa
-# (measure_bounds.c): worst 0.5544 LSB at x = 2160459007.
-LOG2_BOUND_LSB = 0.56
+# log2 (Q16): analytic bound 0.70 = interpolation h^2/8*max|f''| (0.18) + table
+# and truncation (< 0.02) + final rounding (0.5).  Exhaustive sweep of every
+# 32-bit mantissa (measure_bounds.c): worst 0.6889 LSB at x = 2151500543.
+LOG2_BOUND_LSB = 0.70
 # exp2_frac_sat (Q30, x <= 0): exhaustive over x in [-33, 0] (every nonzero
-# output): worst 0.5610 LSB at x = -10272 (Q16).  Bound used: 0.57.
+# output): worst 0.5611 LSB at x = -55494 (Q16).  Bound used: 0.57.
 EXP2_FRAC_BOUND_LSB = 0.57
 # exp2_split mantissa (Q30 in [1, 2)): exhaustive over all 65536 fractions:
-# worst 0.6222 LSB at x = 1992.  Bound used: 0.63 (exp2_q_sat: same worst).
+# worst 0.6227 LSB at x = 10091.  Bound used: 0.63 (exp2_q_sat: same worst).
 EXP2_SPLIT_BOUND_LSB = 0.63
 # x / d through the reciprocal: 0.5 (final rounding) + |x| * 0.5 * 2^-shift.
 RECIP_DIVIDE_BOUND_LSB = 0.75
@@ -132,10 +131,10 @@ def test_c_tables_equal_their_defining_formulas():
     assert _c_array("k_recip_seed_q15") == list(q.recip_seed_table())
     src = C_SOURCE.read_text()
     for k, value in enumerate(q.exp2_poly(), start=1):
-        assert f"#define PFX_EXP2_C{k} UINT32_C({value})" in src
+        assert f"#define PFX_EXP2_C{k} UINT64_C({value})" in src
     # Spot values from the formulas (float64, independent of the decimal code).
-    assert q.log2_table()[32] == round(math.log2(1.5) * 2**24)
-    assert q.exp2_table()[32] == round((math.sqrt(2) - 1) * 2**32)
+    assert q.log2_table()[128] == round(math.log2(1.5) * 2**24)
+    assert q.exp2_table()[128] == round((math.sqrt(2) - 1) * 2**32)
 
 
 # --- leading zeros -------------------------------------------------------------

@@ -35,9 +35,9 @@ LOG2_FRAC_BITS = 16  # pfx_log2_q16_t
 FRAC_Q30_ONE = 1 << 30  # pfx_frac_q30_t and pfx_mant_q30_t: 1.0
 
 # Shape of the C tables (must match pfx_fixed.c).
-LOG2_TABLE_BITS = 6  # log2 table: 2^6 intervals on [1, 2), Newton's three-point formula
+LOG2_TABLE_BITS = 8  # log2 table: 2^8 intervals on [1, 2), linear interpolation
 LOG2_TABLE_FRAC = 24  # table entries in Q24
-EXP2_TABLE_BITS = 6  # exp2 table: 2^6 steps of the Q16 fraction, polynomial for the rest
+EXP2_TABLE_BITS = 8  # exp2 table: 2^8 steps of the Q16 fraction, polynomial for the rest
 RECIP_SEED_BITS = 7  # reciprocal seed: 2^7 intervals on [0.5, 1)
 
 
@@ -260,19 +260,19 @@ def _round_decimal(v: Decimal) -> int:
 
 @lru_cache(maxsize=None)
 def log2_table() -> tuple[int, ...]:
-    """round(log2(1 + k/64) * 2^24), k = 0..65 (one entry past [1, 2) for the last second difference)."""
+    """round(log2(1 + k/256) * 2^24), k = 0..256."""
     n = 1 << LOG2_TABLE_BITS
     with localcontext() as ctx:
         ctx.prec = _PREC
         ln2 = Decimal(2).ln()
         return tuple(
-            _round_decimal((Decimal(n + k) / n).ln() / ln2 * (1 << LOG2_TABLE_FRAC)) for k in range(n + 2)
+            _round_decimal((Decimal(n + k) / n).ln() / ln2 * (1 << LOG2_TABLE_FRAC)) for k in range(n + 1)
         )
 
 
 @lru_cache(maxsize=None)
 def exp2_table() -> tuple[int, ...]:
-    """round((2^(k/64) - 1) * 2^32), k = 0..63: the fraction above 1, Q32."""
+    """round((2^(k/256) - 1) * 2^32), k = 0..255: the fraction above 1, Q32."""
     n = 1 << EXP2_TABLE_BITS
     with localcontext() as ctx:
         ctx.prec = _PREC
@@ -281,12 +281,21 @@ def exp2_table() -> tuple[int, ...]:
 
 
 @lru_cache(maxsize=None)
-def exp2_poly() -> tuple[int, int, int, int, int]:
-    """C1..C5 = round(ln2^n / n! * 2^32): e(t) = 2^(t/65536) - 1 = x (C1 + x (C2 + ...)) in Horner form, x = t/2^16."""
+def exp2_poly() -> tuple[int, int, int, int]:
+    """C1..C4 of e(t) = 2^(t/65536) - 1 = sum_k (t ln2 / 2^16)^k / k!, t in 0..255.
+
+    In the C: e56 = t*C1 + t^2*C2 + round(t^3*C3 / 2^16) + round(t^4*C4 / 2^32),
+    so C1 = ln2 * 2^40, C2 = ln2^2/2 * 2^24, C3 = ln2^3/6 * 2^24, C4 = ln2^4/24 * 2^24.
+    """
     with localcontext() as ctx:
         ctx.prec = _PREC
         ln2 = Decimal(2).ln()
-        return tuple(_round_decimal(ln2**n / math.factorial(n) * (1 << 32)) for n in range(1, 6))
+        return (
+            _round_decimal(ln2 * (1 << 40)),
+            _round_decimal(ln2**2 / 2 * (1 << 24)),
+            _round_decimal(ln2**3 / 6 * (1 << 24)),
+            _round_decimal(ln2**4 / 24 * (1 << 24)),
+        )
 
 
 @lru_cache(maxsize=None)
@@ -300,15 +309,11 @@ def recip_seed_table() -> tuple[int, ...]:
 
 
 def _log2_frac24(m: int) -> int:
-    """log2(m / 2^31) in Q24 for m in [2^31, 2^32): Newton's forward formula on three table entries."""
+    """log2(m / 2^31) in Q24 for m in [2^31, 2^32): table + linear interpolation."""
     table = log2_table()
-    k = (m >> 25) & 0x3F
-    u = (m >> 8) & 0x1FFFF
-    t0, t1, t2 = table[k], table[k + 1], table[k + 2]
-    lin = ((t1 - t0) * u + (1 << 16)) >> 17
-    w = u >> 1
-    bow = (w * ((1 << 16) - w) * (2 * t1 - t0 - t2) + (1 << 32)) >> 33
-    return t0 + lin + bow
+    k = (m >> 23) & 0xFF
+    r = (m >> 8) & 0x7FFF
+    return table[k] + (((table[k + 1] - table[k]) * r + (1 << 14)) >> 15)
 
 
 def _log2_norm(m: int, n: int) -> int:
@@ -346,14 +351,12 @@ def log2_q(x: int, frac_bits: int) -> tuple[Status, int]:
 
 def exp2_mant_q63(f: int) -> int:
     """2^(f / 65536) in Q63 for f in [0, 65536) (the C's internal mantissa)."""
-    c1, c2, c3, c4, c5 = exp2_poly()
-    h = exp2_table()[f >> 10]
-    t = f & 0x3FF
-    total = c5
-    for c in (c4, c3, c2, c1):
-        total = c + ((t * total) >> 16)
-    e38 = (t * total + (1 << 9)) >> 10
-    return (1 << 63) + (h << 31) + (e38 << 25) + ((h * e38) >> 7)
+    c1, c2, c3, c4 = exp2_poly()
+    h = exp2_table()[f >> 8]
+    t = f & 0xFF
+    e56 = t * c1 + t * t * c2 + ((t**3 * c3 + (1 << 15)) >> 16) + ((t**4 * c4 + (1 << 31)) >> 32)
+    e40 = (e56 + (1 << 15)) >> 16
+    return (1 << 63) + (h << 31) + (e40 << 23) + ((h * e40) >> 9)
 
 
 def exp2_frac_sat(x: int) -> int:

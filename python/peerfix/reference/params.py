@@ -129,14 +129,14 @@ class EstimatorParams:
 # the update needs the room the speed settings cut away.  Measured by
 # campaigns/robust-tuning.toml (docs/studies.md): at 20 % blocked, 8 iterations,
 # the pooled p90 error falls from 0.64 m to 0.38 m.  Broadcast inflation 1 and
-# 0.5 m arcs lower it a little more (0.34 m) but are left out: 95 % coverage
+# 0.5 m arcs lower it a little more (0.35 m) but are left out: 95 % coverage
 # drops from 0.85 to 0.70 and the worst network from 0.93 to 0.84 within 1 m.
 # Moving the blocked ring (robust_ring_scale, campaigns/robust-ring.toml) is
 # left at 1: no scale gains on all 80 networks of that study.  Rings widened by a
 # neighbour's spread along each line of sight (directional_spread,
 # campaigns/robust-spread.toml, fixed core, 80 networks) lower the ratio of
-# blocked to line-of-sight p90 at 20 iterations from 2.11 to 1.93 (held-out
-# seeds 200-279: 2.09 to 1.99); the cost is 95 % coverage at 20 % blocked (0.89
+# blocked to line-of-sight p90 at 20 iterations from 2.10 to 1.92 (held-out
+# seeds 200-279: 2.08 to 1.97); the cost is 95 % coverage at 20 % blocked (0.89
 # to 0.81).  Defaults with the robust likelihood off are untouched.
 ROBUST_PRESET: dict[str, float | int] = {
     "working_cap": 16,  # = PFX_MAX_WORKING: both rings of a range survive between neighbours
@@ -146,8 +146,8 @@ ROBUST_PRESET: dict[str, float | int] = {
 
 ROBUST_ITERATIONS = 20
 """Iterations per epoch the robust preset is measured with: the blocked p90 still falls
-past 12 (campaigns/robust-spread.toml: ratio to line of sight 2.05 at 12, 1.98 at 16,
-1.93 at 20)."""
+past 12 (campaigns/robust-spread.toml: ratio to line of sight 2.04 at 12, 1.97 at 16,
+1.92 at 20)."""
 
 
 def robust_preset(params: EstimatorParams | None = None, keep: tuple[str, ...] = ()) -> EstimatorParams:
