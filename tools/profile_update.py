@@ -22,7 +22,7 @@ import dataclasses
 import statistics
 
 from peerfix.budget.build import TargetConfig, build
-from peerfix.budget.capture import RUNS, capture, from_tracking_prior, is_headline
+from peerfix.budget.capture import RUNS, capture, from_tracking_prior, is_headline, with_overrides
 from peerfix.budget.report import FULL_CALLS, FULL_HEADLINE, QUICK_CALLS, QUICK_HEADLINE, replay_all
 from peerfix.commands.common import param_overrides
 from peerfix.core._pfx import ffi, lib
@@ -90,8 +90,8 @@ def main() -> None:
 
     result = build(TargetConfig(args.target, args.opt))
     overrides = param_overrides(args.param)
-    runs = tuple(dataclasses.replace(r, overrides=overrides) for r in RUNS)
-    sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)), runs=runs)
+    sel = capture(*((QUICK_CALLS, QUICK_HEADLINE) if args.quick else (FULL_CALLS, FULL_HEADLINE)),
+                  runs=with_overrides(RUNS, overrides))
     calls = [c for c in sel.calls["pfx_node_update"] if is_headline(c)
              and (args.prior == "any" or from_tracking_prior(c) == (args.prior == "tracking"))]
     rows = replay_all(str(result.elf), result.key, args.target, tuple(calls))

@@ -198,6 +198,11 @@ RUNS: tuple[Run, ...] = (
     *(Run("mine-drift", 0, k, epochs=2) for k in (1, 4, 8)),
 )
 
+def with_overrides(runs: tuple[Run, ...], overrides: tuple[tuple[str, object], ...]) -> tuple[Run, ...]:
+    """The runs with hand-set estimator settings (`--param`) in place of their own."""
+    return tuple(dataclasses.replace(r, overrides=tuple(overrides)) for r in runs)
+
+
 # `peerfix budget --robust`: what the robust preset costs on the tag, on the
 # networks it is measured on (open field, 20 % of ranges blocked) and on the
 # cold store (racks block most paths), at the iterations it is measured with.

@@ -18,7 +18,6 @@ peerfix.budget.timing summed over the emulated instructions, zero wait states.
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import statistics
 import sys
@@ -39,6 +38,7 @@ from peerfix.budget.capture import (
     capture,
     is_headline,
     replay,
+    with_overrides,
 )
 from peerfix.budget.compare import FUNCTION_ROWS
 from peerfix.budget.stack import analyse
@@ -135,9 +135,8 @@ def budget_report(
         raise ValueError(f"clock {clock_mhz} MHz: must be > 0")
     result = build(config)
     if calls is None:
-        runs = tuple(dataclasses.replace(r, overrides=tuple(overrides)) for r in (ROBUST_RUNS if robust else RUNS))
         calls = capture(*((QUICK_CALLS, QUICK_HEADLINE) if quick else (FULL_CALLS, FULL_HEADLINE)), seed=seed,
-                        runs=runs)
+                        runs=with_overrides(ROBUST_RUNS if robust else RUNS, overrides))
     captured = calls if isinstance(calls, CaptureSet) else None
     call_list = calls.all_calls() if isinstance(calls, CaptureSet) else list(calls)
     replayed = replay_all(str(result.elf), result.key, config.cpu, tuple(call_list))
@@ -387,11 +386,11 @@ def render_markdown(doc: dict) -> str:
     hl = doc["update_config"]
     lines += _table(["figure", "value"], [
         [f"update, {hl['neighbours']} heard broadcasts, K = {hl['K']}: cycles median / p90 / max",
-         f"{_n(doc['update_cycles_median'])} / {_n(doc.get('update_cycles_p90'))} / {_n(doc['update_cycles_max'])} "
+         f"{_n(doc['update_cycles_median'])} / {_n(doc['update_cycles_p90'])} / {_n(doc['update_cycles_max'])} "
          f"(median {_ms(doc['update_cycles_median'] / clock if doc['update_cycles_median'] else None)} ms, "
          f"max {_ms(doc['update_time_max_us'])} ms) over {doc['update_calls']} calls"],
         *[[f"update, {hl['neighbours']} heard, K = {hl['K']}, from {what}: cycles median / p90 / max",
-           f"{_n(doc[f'update_cycles_median_{kind}'])} / {_n(doc.get(f'update_cycles_p90_{kind}'))} / "
+           f"{_n(doc[f'update_cycles_median_{kind}'])} / {_n(doc[f'update_cycles_p90_{kind}'])} / "
            f"{_n(doc[f'update_cycles_max_{kind}'])} over {_n(doc[f'update_calls_{kind}'])} calls"]
           for kind, what in (("acquisition", "the uniform prior (acquisition)"),
                              ("tracking", "a tracking prior (steady state)"))

@@ -67,13 +67,14 @@ def estimator_params(args) -> EstimatorParams:
         params = params.replace(max_components=args.components)
     if args.robust:
         params = params.replace(robust=True)
-    params = params.replace(**dict(param_overrides(args.param)))
+    overrides = param_overrides(args.param)
+    params = params.replace(**dict(overrides))
     if params.max_components < 1:
         raise SystemExit("peerfix: error: --components must be at least 1")
     if params.robust:
         # The robust likelihood comes with its own reduction settings
         # (docs/estimator.md, "Robust preset"); what --param set explicitly wins.
-        params = robust_preset(params, keep=tuple(item.partition("=")[0] for item in args.param))
+        params = robust_preset(params, keep=tuple(name for name, _ in overrides))
     return params
 
 
